@@ -1,0 +1,5 @@
+import sys
+
+from screening.cli import main
+
+sys.exit(main())

@@ -1,0 +1,138 @@
+"""Command line: ``screening run | edges | audit``.
+
+Heavy libraries are imported inside the commands, so ``--help`` stays fast.
+Bad input of any kind ends in one line on stderr and exit status 2.
+"""
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+from pathlib import Path
+
+from screening.errors import ScreeningError
+
+REPO_ROOT = Path(__file__).resolve().parents[1]
+SNAKEFILE = REPO_ROOT / "workflow" / "Snakefile"
+DEFAULT_RULES = REPO_ROOT / "rules" / "default.yaml"
+
+
+def _run_parser(sub) -> None:
+    p = sub.add_parser("run", help="run a screen through the Snakemake workflow",
+                       description="Run a screen: enumerate, filter, estimate band edges, rank. "
+                                   "Writes shortlist.csv, rejected.parquet and funnel.csv under --out.")
+    p.add_argument("--rules", type=Path, default=DEFAULT_RULES, help="rule-set YAML (default: rules/default.yaml)")
+    p.add_argument("--out", type=Path, default=None, help="results folder (default: results/<rule-set name>)")
+    p.add_argument("--cores", type=int, default=2, help="parallel jobs (default 2)")
+    p.add_argument("--dry-run", action="store_true", help="show the plan, run nothing")
+    p.add_argument("--snakemake-args", default="", help="extra arguments passed to snakemake, quoted")
+
+
+def _edges_parser(sub) -> None:
+    p = sub.add_parser("edges", help="Butler–Ginley band edges and STH limit of one formula",
+                       description="Compound electronegativity, CBM and VBM (V vs NHE) and the AM1.5G STH "
+                                   "limit for a formula and its band gap.")
+    p.add_argument("formula", help="e.g. TiO2 or Sr0.98La0.02Ti0.98Cr0.02O3")
+    p.add_argument("--gap", type=float, required=True, help="band gap or absorption onset, eV")
+    p.add_argument("--ph", type=float, default=0.0, help="pH for the NHE potentials (default 0)")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="screening",
+        description="Shortlist dopant and codopant pairs for wide-gap oxide hosts as visible-light "
+                    "absorbers for solar water splitting.")
+    parser.add_argument("--version", action="version", version=_version())
+    sub = parser.add_subparsers(dest="command", required=True)
+    _run_parser(sub)
+    _edges_parser(sub)
+    try:
+        from screening import audit
+    except ImportError:  # the audit module is optional until it lands
+        audit = None
+    if audit is not None:
+        audit.register(sub)
+    return parser
+
+
+def _version() -> str:
+    from screening import __version__
+
+    return f"screening {__version__}"
+
+
+def cmd_edges(args) -> int:
+    from screening import bands, solar
+    from screening.formulas import parse_formula
+
+    if not 0 < args.gap <= 12:
+        raise ScreeningError(f"--gap must be a band gap in eV from 0 to 12, got {args.gap}")
+    if not 0 <= args.ph <= 14:
+        raise ScreeningError(f"--ph must be from 0 to 14, got {args.ph}")
+    composition = parse_formula(args.formula, source="formula")
+    chi = bands.electronegativity(composition)
+    cbm, vbm = bands.band_edges(chi, args.gap, ph=args.ph)
+    sth = float(solar.sth_limit(args.gap))
+    result = {"formula": args.formula, "gap_ev": args.gap, "ph": args.ph, "chi_ev": round(chi, 4),
+              "cbm_v_nhe": round(cbm, 4), "vbm_v_nhe": round(vbm, 4), "sth_limit": round(sth, 5),
+              "free_electron_ev": bands.FREE_ELECTRON_EV}
+    if args.json:
+        print(json.dumps(result))
+    else:
+        print(f"{args.formula}: chi = {chi:.3f} eV (Butler–Ginley, E_e = {bands.FREE_ELECTRON_EV} eV)")
+        print(f"  CBM {cbm:+.3f} V vs NHE, VBM {vbm:+.3f} V vs NHE at pH {args.ph:g} (gap {args.gap:g} eV)")
+        print(f"  STH limit (AM1.5G, unit quantum yield): {100 * sth:.2f} %")
+    return 0
+
+
+def cmd_run(args) -> int:
+    import shlex
+    import subprocess
+
+    from screening import hosts, pools, rulesets
+
+    # Check everything that enters before any work, so bad input leaves nothing behind.
+    rules = rulesets.load_ruleset(args.rules)
+    hosts.load_hosts(rules.hosts_path)
+    pools.load_pool(rules.pool_path)
+    if args.cores < 1:
+        raise ScreeningError(f"--cores must be at least 1, got {args.cores}")
+    out = (args.out or Path("results") / rules.name).resolve()
+    if not SNAKEFILE.is_file():
+        raise ScreeningError(f"workflow file not found at {SNAKEFILE} (install the package from a checkout "
+                             "with `pip install -e .`)")
+    command = [sys.executable, "-m", "snakemake", "--snakefile", str(SNAKEFILE), "--cores", str(args.cores),
+               "--directory", str(out), "--config", f"ruleset={rules.path}", f"out={out}",
+               "--rerun-incomplete", "--quiet", "rules"]
+    if args.dry_run:
+        command.append("--dry-run")
+    command += shlex.split(args.snakemake_args)
+    out.mkdir(parents=True, exist_ok=True)
+    completed = subprocess.run(command)
+    if completed.returncode != 0:
+        print(f"screening: the workflow failed (exit {completed.returncode}); see {out}/logs", file=sys.stderr)
+        return 1
+    if not args.dry_run:
+        print(f"screening: shortlist written to {out / 'shortlist.csv'}")
+    return 0
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        if args.command == "run":
+            return cmd_run(args)
+        if args.command == "edges":
+            return cmd_edges(args)
+        from screening import audit
+
+        return audit.run(args)
+    except ScreeningError as exc:
+        print(f"screening: error: {exc}", file=sys.stderr)
+        return 2
+
+
+if __name__ == "__main__":
+    sys.exit(main())

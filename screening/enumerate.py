@@ -1,0 +1,268 @@
+"""Enumeration of substitutional dopants and charge-compensated dopant–codopant pairs.
+
+Conventions (Kröger & Vink, Solid State Phys. 3 (1956) 307): an ion of charge q
+on a host site of charge q_site carries the effective charge
+delta = q - q_site, written • per positive unit, ′ per negative unit and × for
+zero.  An acceptor (delta < 0) and a donor (delta > 0) compensate each other in
+the smallest positive integer ratio n_a : n_d with n_a * delta_a + n_d * delta_d = 0
+(n_a = delta_d / g, n_d = -delta_a / g, g = gcd).  An acceptor alone can be
+compensated by oxygen vacancies, one V_O•• per two negative units; a donor
+alone by electrons where the rule set allows it.
+
+The work is split in two so that no pair is ever built from an ion that a
+single-ion rule already removed:
+
+* :func:`placements` -- every pool ion on every cation site (vectorised cross join);
+* :func:`combine` -- singles and acceptor × donor pairs from the placements that
+  survived the single-ion rules, joined per host on the sign of the effective
+  charge.  Charges and ratios are integers; amounts per formula unit are exact
+  rationals (numerator / denominator integer columns).
+"""
+from __future__ import annotations
+
+from fractions import Fraction
+
+import numpy as np
+import pandas as pd
+
+from screening import ions
+from screening.formulas import format_formula
+from screening.hosts import Host
+
+PLACEMENT_KEY = ["host", "site", "element", "charge"]
+
+
+def placements(sites: pd.DataFrame, pool: pd.DataFrame) -> pd.DataFrame:
+    """Every pool ion on every cation site, with its radius at the site's coordination.
+
+    ``sites``: from :func:`screening.hosts.sites_frame`; ``pool``: element, charge, common.
+    The host's own ion on its own site is not a dopant and is left out; another
+    oxidation state of the site's element is kept (it is a real defect).
+    """
+    crossed = sites.merge(pool, how="cross")
+    crossed = crossed[~((crossed["element"] == crossed["site_element"])
+                        & (crossed["charge"] == crossed["site_charge"]))]
+    radii = ions.lookup_radii(crossed[["element", "charge", "coordination"]])
+    crossed = crossed.reset_index(drop=True)
+    crossed["radius_a"] = radii["radius_a"].to_numpy()
+    crossed["radius_estimated"] = radii["radius_estimated"].to_numpy()
+    crossed["spin"] = radii["spin"].to_numpy()
+    crossed["delta"] = (crossed["charge"] - crossed["site_charge"]).astype(np.int64)
+    crossed["mismatch"] = (crossed["radius_a"] - crossed["site_radius_a"]).abs() / crossed["site_radius_a"]
+    crossed["ion"] = _ion_labels(crossed["element"], crossed["charge"])
+    return crossed.sort_values(PLACEMENT_KEY).reset_index(drop=True)
+
+
+def _ion_labels(elements: pd.Series, charges: pd.Series) -> pd.Series:
+    magnitude = charges.abs().astype(str).where(charges.abs() != 1, "")
+    sign = pd.Series(np.where(charges > 0, "+", "-"), index=charges.index)
+    return elements.astype(str) + magnitude + sign
+
+
+def _charge_marks(delta: pd.Series) -> pd.Series:
+    marks = pd.Series("×", index=delta.index, dtype=object)
+    marks[delta > 0] = delta[delta > 0].map(lambda d: "•" * d)
+    marks[delta < 0] = delta[delta < 0].map(lambda d: "′" * -d)
+    return marks.astype(str)
+
+
+def _kv(element: pd.Series, site: pd.Series, delta: pd.Series) -> pd.Series:
+    return element.astype(str) + "_" + site.astype(str) + _charge_marks(delta)
+
+
+def _coefficient(n: pd.Series) -> pd.Series:
+    return n.astype(str).where(n != 1, "").str.cat(pd.Series(np.where(n != 1, " ", ""), index=n.index))
+
+
+_PLACEMENT_COLUMNS = ["host", "site", "site_element", "site_charge", "coordination", "multiplicity",
+                      "element", "charge", "ion", "delta", "radius_a", "radius_estimated", "spin", "mismatch"]
+
+
+def combine(kept: pd.DataFrame, enumeration: dict, dopant_fraction: Fraction) -> pd.DataFrame:
+    """Singles and compensated pairs from the placements that passed the single-ion rules.
+
+    Returns one row per candidate.  The dopant of a pair is the acceptor, the
+    codopant the donor; ``n_dopant : n_codopant`` is the exact smallest ratio.
+    Amounts per formula unit are rationals ``*_num / amount_den``.
+    Candidates that are not charge balanced (an aliovalent single without an
+    allowed compensation) are still returned, with ``compensation == 'none'``;
+    the charge-balance rule removes them with a record.
+    """
+    kept = kept[_PLACEMENT_COLUMNS]
+    frames = []
+    if enumeration["singles"]:
+        frames.append(_singles(kept, enumeration))
+    if enumeration["pairs"]:
+        frames.append(_pairs(kept))
+    if not frames:
+        return _empty_candidates()
+    candidates = pd.concat(frames, ignore_index=True)
+    return _finish(candidates, dopant_fraction)
+
+
+def _singles(kept: pd.DataFrame, enumeration: dict) -> pd.DataFrame:
+    singles = kept.add_prefix("dopant_").rename(columns={"dopant_host": "host"})
+    singles["kind"] = "single"
+    singles["n_dopant"] = 1
+    singles["n_codopant"] = 0
+    delta = singles["dopant_delta"]
+    compensation = np.select(
+        [delta == 0,
+         (delta < 0) & enumeration["vacancy_compensation"],
+         (delta > 0) & enumeration["electron_compensation"]],
+        ["isovalent", "oxygen_vacancy", "electrons"], default="none")
+    singles["compensation"] = compensation
+    return singles
+
+
+def _pairs(kept: pd.DataFrame) -> pd.DataFrame:
+    acceptors = kept[kept["delta"] < 0].add_prefix("dopant_").rename(columns={"dopant_host": "host"})
+    donors = kept[kept["delta"] > 0].add_prefix("codopant_").rename(columns={"codopant_host": "host"})
+    pairs = acceptors.merge(donors, on="host", how="inner")
+    a = -pairs["dopant_delta"].to_numpy(np.int64)
+    d = pairs["codopant_delta"].to_numpy(np.int64)
+    g = np.gcd(a, d)
+    pairs["n_dopant"] = d // g
+    pairs["n_codopant"] = a // g
+    pairs["kind"] = "pair"
+    pairs["compensation"] = "codopant"
+    return pairs
+
+
+def _empty_candidates() -> pd.DataFrame:
+    return pd.DataFrame(columns=["candidate_id", "host", "kind"])
+
+
+def _finish(c: pd.DataFrame, x: Fraction) -> pd.DataFrame:
+    """Ratios, site fractions, exact amounts, Kröger–Vink defects, ids."""
+    pair = c["kind"] == "pair"
+    for column in ("codopant_site", "codopant_element", "codopant_ion"):
+        c[column] = c[column].fillna("").astype(str) if column in c else ""
+    for column in ("codopant_charge", "codopant_delta", "codopant_multiplicity", "codopant_site_charge",
+                   "codopant_coordination"):
+        c[column] = c[column].fillna(0).astype(np.int64) if column in c else 0
+    for column in ("codopant_mismatch", "codopant_radius_a"):
+        c[column] = c[column].astype(float) if column in c else np.nan
+    c["codopant_radius_estimated"] = (c["codopant_radius_estimated"].fillna(False).astype(bool)
+                                      if "codopant_radius_estimated" in c else False)
+    c["n_dopant"] = c["n_dopant"].astype(np.int64)
+    c["n_codopant"] = c["n_codopant"].astype(np.int64)
+
+    # Dopant ions per formula unit = x * m_dopant_site; codopant = that * n_c / n_d.
+    # Common denominator: x.denominator * n_dopant (times 2 for vacancies).
+    m_d = c["dopant_multiplicity"].to_numpy(np.int64)
+    n_d = c["n_dopant"].to_numpy(np.int64)
+    n_c = c["n_codopant"].to_numpy(np.int64)
+    den = np.int64(x.denominator) * n_d * 2
+    c["amount_den"] = den
+    c["dopant_num"] = np.int64(x.numerator) * m_d * n_d * 2
+    c["codopant_num"] = np.int64(x.numerator) * m_d * n_c * 2
+    vacancy = c["compensation"].eq("oxygen_vacancy").to_numpy()
+    # one V_O per two negative units: |delta| * dopant amount / 2
+    c["vacancy_num"] = np.where(vacancy, np.int64(x.numerator) * m_d * n_d * (-c["dopant_delta"].to_numpy()), 0)
+    c["dopant_fraction"] = c["dopant_num"] / c["amount_den"] / c["dopant_multiplicity"]
+    c["codopant_fraction"] = np.where(pair, c["codopant_num"] / c["amount_den"]
+                                      / c["codopant_multiplicity"].where(pair, 1), 0.0)
+    c["ratio"] = np.where(pair, c["n_dopant"].astype(str) + ":" + c["n_codopant"].astype(str), "")
+    c["max_ratio_count"] = np.maximum(c["n_dopant"], c["n_codopant"])
+
+    dopant_defect = _coefficient(c["n_dopant"]) + _kv(c["dopant_element"], c["dopant_site"], c["dopant_delta"])
+    codopant_defect = _coefficient(c["n_codopant"]) + _kv(c["codopant_element"], c["codopant_site"],
+                                                          c["codopant_delta"])
+    n_vac = (-c["dopant_delta"]).where(vacancy, 0)
+    # 2 acceptors of charge -1 per vacancy: write the balanced smallest set
+    vac_text = pd.Series(np.where(vacancy, "", ""), index=c.index)
+    single_acc = vacancy
+    g = np.gcd(np.where(single_acc, -c["dopant_delta"].to_numpy(), 1), 2)
+    n_acc_v = np.where(single_acc, 2 // g, 1)
+    n_vo = np.where(single_acc, -c["dopant_delta"].to_numpy() // g, 0)
+    vac_text = np.where(single_acc,
+                        pd.Series(n_acc_v, index=c.index).map(lambda n: f"{n} " if n != 1 else "")
+                        + _kv(c["dopant_element"], c["dopant_site"], c["dopant_delta"])
+                        + " + " + pd.Series(n_vo, index=c.index).map(lambda n: f"{n} " if n != 1 else "")
+                        + "V_O••", "")
+    c["defects"] = np.where(pair, dopant_defect + " + " + codopant_defect,
+                            np.where(single_acc, vac_text,
+                                     _kv(c["dopant_element"], c["dopant_site"], c["dopant_delta"])
+                                     + np.where(c["compensation"].eq("electrons"),
+                                                " + " + c["dopant_delta"].astype(str) + " e′", "")))
+    del n_vac
+    c["candidate_id"] = (c["host"] + "/" + c["dopant_ion"] + "@" + c["dopant_site"]
+                         + np.where(pair, "+" + c["codopant_ion"] + "@" + c["codopant_site"],
+                                    np.where(vacancy, "+V_O", "")))
+    return c.sort_values("candidate_id", kind="stable").reset_index(drop=True)
+
+
+def candidate_amounts(candidates: pd.DataFrame, hosts: dict[str, Host]) -> pd.DataFrame:
+    """Atoms per formula unit (float) of each candidate: one column per element.
+
+    Built from the host's composition with the exact substitution amounts.
+    """
+    elements = sorted({e for h in hosts.values() for e in h.composition()}
+                      | set(candidates["dopant_element"]) | (set(candidates["codopant_element"]) - {""}))
+    matrix = np.zeros((len(candidates), len(elements)))
+    column = {e: i for i, e in enumerate(elements)}
+    host_matrix = np.zeros((len(hosts), len(elements)))
+    host_row = {}
+    for i, (host_id, host) in enumerate(hosts.items()):
+        host_row[host_id] = i
+        for element, amount in host.composition().items():
+            host_matrix[i, column[element]] = float(amount)
+    rows = candidates["host"].map(host_row).to_numpy()
+    matrix[:] = host_matrix[rows]
+    index = np.arange(len(candidates))
+    den = candidates["amount_den"].to_numpy(float)
+    dopant = candidates["dopant_num"].to_numpy(float) / den
+    codopant = candidates["codopant_num"].to_numpy(float) / den
+    vacancy = candidates["vacancy_num"].to_numpy(float) / den
+    # np.add.at accumulates where a dopant replaces its own element's other site
+    np.add.at(matrix, (index, candidates["dopant_site_element"].map(column).to_numpy()), -dopant)
+    np.add.at(matrix, (index, candidates["dopant_element"].map(column).to_numpy()), dopant)
+    pair = candidates["kind"].eq("pair").to_numpy()
+    if pair.any():
+        np.add.at(matrix, (index[pair], candidates.loc[pair, "codopant_site_element"].map(column).to_numpy()),
+                  -codopant[pair])
+        np.add.at(matrix, (index[pair], candidates.loc[pair, "codopant_element"].map(column).to_numpy()),
+                  codopant[pair])
+    if "O" in column:
+        matrix[:, column["O"]] -= vacancy
+    return pd.DataFrame(matrix, columns=elements, index=candidates.index)
+
+
+def candidate_formula(row: pd.Series, host: Host) -> str:
+    """Exact formula of one candidate, e.g. Sr0.98La0.02Ti0.98Cr0.02O3 (used for survivors only)."""
+    den = int(row["amount_den"])
+    amounts: dict[str, Fraction] = {}
+    order: list[str] = []
+    substitutions = {row["dopant_site"]: [(row["dopant_element"], Fraction(int(row["dopant_num"]), den))]}
+    if row["kind"] == "pair":
+        substitutions.setdefault(row["codopant_site"], []).append(
+            (row["codopant_element"], Fraction(int(row["codopant_num"]), den)))
+    for site in host.sites:
+        removed = sum((a for _, a in substitutions.get(site.label, [])), Fraction(0))
+        _add(amounts, order, site.element, Fraction(site.multiplicity) - removed)
+        for element, amount in substitutions.get(site.label, []):
+            _add(amounts, order, element, amount)
+    _add(amounts, order, host.anion.element,
+         Fraction(host.anion.multiplicity) - Fraction(int(row["vacancy_num"]), den))
+    return format_formula(amounts, order)
+
+
+def _add(amounts: dict, order: list, element: str, amount: Fraction) -> None:
+    if element not in amounts:
+        order.append(element)
+        amounts[element] = Fraction(0)
+    amounts[element] += amount
+
+
+def net_charge(candidates: pd.DataFrame) -> np.ndarray:
+    """Exact net charge per formula unit of the substitution (integers over amount_den); 0 = neutral.
+
+    Electron compensation counts the electrons; an uncompensated single gives its
+    own charge.
+    """
+    dopant = candidates["dopant_num"].to_numpy(np.int64) * candidates["dopant_delta"].to_numpy(np.int64)
+    codopant = candidates["codopant_num"].to_numpy(np.int64) * candidates["codopant_delta"].to_numpy(np.int64)
+    vacancy = candidates["vacancy_num"].to_numpy(np.int64) * 2
+    electrons = np.where(candidates["compensation"].eq("electrons"), -dopant, 0)
+    return dopant + codopant + vacancy + electrons

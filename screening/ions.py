@@ -1,0 +1,341 @@
+"""Ion and element data: Shannon radii, oxidation states, electronegativity, abundance, cost.
+
+Sources
+-------
+* Effective ionic radii by charge, coordination number and spin: R. D. Shannon,
+  Acta Cryst. A32 (1976) 751, as carried by mendeleev's ``ionicradii`` table
+  (cross-checked against pymatgen's copy in the tests).
+* Oxidation states and whether a state is a common one: mendeleev's
+  ``oxidationstates`` table (category ``main`` = common).
+* Mulliken (absolute) electronegativity chi = (I1 + A) / 2 from mendeleev's first
+  ionisation energies and electron affinities.  Where mendeleev has no affinity
+  because the anion is unbound (Zn, Cd, Hg, Mg, Mn), and for N, whose
+  estimated affinity in mendeleev differs from the published one, the value of Pearson's
+  absolute-electronegativity table (Inorg. Chem. 27 (1988) 734) is used, as the
+  published band-edge tables do; the shipped file beside this module says which.
+  Any other element without an affinity gets chi = I1/2 and says so in
+  ``chi_source``.
+* Crustal abundance (ppm), price (USD/kg), relative supply risk and radioactivity:
+  mendeleev's ``elements`` table (its documentation names the CRC Handbook for
+  abundance and the British Geological Survey risk list for supply risk).
+
+The tables are built once from the two libraries and cached on disk as Parquet
+with a version stamp; a change of either library or of :data:`TABLE_VERSION`
+rebuilds them.  Missing values stay missing (NaN) in the tables; the functions
+that rules call raise :class:`~screening.errors.DataMissingError` instead of
+letting a NaN through.
+"""
+from __future__ import annotations
+
+import json
+import os
+import re
+from dataclasses import dataclass
+from functools import lru_cache
+from importlib import metadata
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from screening.errors import DataMissingError, ScreeningError
+
+TABLE_VERSION = "1"
+_DATA_DIR = Path(__file__).with_name("data")
+_PEARSON_FILE = _DATA_DIR / "pearson_1988_absolute_electronegativity.csv"
+
+_ROMAN = {"I": 1, "II": 2, "III": 3, "IV": 4, "V": 5, "VI": 6, "VII": 7, "VIII": 8,
+          "IX": 9, "X": 10, "XI": 11, "XII": 12, "XIV": 14}
+_GEOMETRY_SUFFIX = re.compile(r"^(?P<roman>[IVX]+)(?P<geometry>SQ|PY)?$")
+
+ELEMENT_COLUMNS = [
+    "symbol", "atomic_number", "atomic_mass", "period", "block",
+    "ionization_ev", "affinity_ev", "chi_mulliken_ev", "chi_source",
+    "abundance_crust_ppm", "price_usd_per_kg", "supply_risk", "radioactive",
+]
+
+
+def roman_to_int(code: str) -> tuple[int, str]:
+    """'VI' -> (6, ''), 'IVSQ' -> (4, 'SQ'): Shannon's coordination codes."""
+    match = _GEOMETRY_SUFFIX.match(code)
+    if not match:
+        raise ValueError(f"not a Shannon coordination code: {code!r}")
+    return _ROMAN[match["roman"]], match["geometry"] or ""
+
+
+def int_to_roman(cn: int) -> str:
+    for code, value in _ROMAN.items():
+        if value == cn:
+            return code
+    raise ScreeningError(f"coordination number {cn} is outside Shannon's table (1-12, 14)")
+
+
+@dataclass(frozen=True)
+class IonData:
+    """The three cached tables.
+
+    elements: one row per element (index = symbol), columns :data:`ELEMENT_COLUMNS`.
+    states:   element, charge, common (bool) -- every oxidation state mendeleev lists.
+    radii:    element, charge, coordination (int), geometry ('' | 'SQ' | 'PY'),
+              spin ('' | 'HS' | 'LS'), radius_a (Angstrom).
+    version:  the stamp the cache was written with.
+    """
+
+    elements: pd.DataFrame
+    states: pd.DataFrame
+    radii: pd.DataFrame
+    version: str
+
+
+def data_version() -> str:
+    """Stamp of the ion tables: our table version plus the source libraries' versions."""
+    return (f"ions-{TABLE_VERSION}+mendeleev-{metadata.version('mendeleev')}"
+            f"+pymatgen-{metadata.version('pymatgen')}")
+
+
+def cache_dir() -> Path:
+    root = os.environ.get("SCREENING_CACHE_DIR")
+    if root:
+        return Path(root)
+    return Path(os.environ.get("XDG_CACHE_HOME", Path.home() / ".cache")) / "screening"
+
+
+def _build_elements() -> pd.DataFrame:
+    from mendeleev.fetch import fetch_table
+
+    raw = fetch_table("elements")
+    ionisation = fetch_table("ionizationenergies")
+    first = ionisation[ionisation["ion_charge"] == 0].set_index("atomic_number")["ionization_energy"]
+    elements = pd.DataFrame({
+        "symbol": raw["symbol"].astype(str),
+        "atomic_number": raw["atomic_number"].astype(int),
+        "atomic_mass": raw["atomic_weight"].astype(float),
+        "period": raw["period"].astype(int),
+        "block": raw["block"].astype(str),
+        "ionization_ev": raw["atomic_number"].map(first).astype(float),
+        "affinity_ev": raw["electron_affinity"].astype(float),
+        "abundance_crust_ppm": raw["abundance_crust"].astype(float),
+        "price_usd_per_kg": raw["price_per_kg"].astype(float),
+        "supply_risk": raw["relative_supply_risk"].astype(float),
+        "radioactive": raw["is_radioactive"].fillna(0).astype(bool),
+    })
+    chi = (elements["ionization_ev"] + elements["affinity_ev"]) / 2
+    source = pd.Series("(I1 + A)/2, mendeleev", index=elements.index)
+    no_affinity = elements["affinity_ev"].isna()
+    chi = chi.where(~no_affinity, elements["ionization_ev"] / 2)
+    source = source.where(~no_affinity, "I1/2: no tabulated electron affinity, taken as zero")
+
+    pearson = pd.read_csv(_PEARSON_FILE, comment="#").set_index("symbol")
+    in_pearson = elements["symbol"].isin(pearson.index)
+    chi = chi.where(~in_pearson, elements["symbol"].map(pearson["chi_ev"]))
+    elements["affinity_ev"] = elements["affinity_ev"].where(
+        ~in_pearson, elements["symbol"].map(pearson["affinity_ev"]))
+    source = source.where(~in_pearson, "Pearson 1988 absolute electronegativity (negative affinity)")
+    elements["chi_mulliken_ev"] = chi.astype(float)
+    elements["chi_source"] = source.astype(str)
+    return elements[ELEMENT_COLUMNS].set_index("symbol", drop=False)
+
+
+def _build_states(symbols: pd.Series) -> pd.DataFrame:
+    from mendeleev.fetch import fetch_table
+
+    raw = fetch_table("oxidationstates")
+    states = pd.DataFrame({
+        "element": raw["atomic_number"].map(symbols).astype(str),
+        "charge": raw["oxidation_state"].astype(int),
+        "common": raw["category"].eq("main"),
+    })
+    states = states[states["charge"] != 0]
+    return states.sort_values(["element", "charge"]).drop_duplicates(["element", "charge"]).reset_index(drop=True)
+
+
+def _build_radii(symbols: pd.Series) -> pd.DataFrame:
+    from mendeleev.fetch import fetch_table
+
+    raw = fetch_table("ionicradii")
+    raw = raw[raw["ionic_radius"].notna()]
+    parsed = raw["coordination"].astype(str).map(roman_to_int)
+    radii = pd.DataFrame({
+        "element": raw["atomic_number"].map(symbols).astype(str).to_numpy(),
+        "charge": raw["charge"].astype(int).to_numpy(),
+        "coordination": [cn for cn, _ in parsed],
+        "geometry": [geometry for _, geometry in parsed],
+        "spin": raw["spin"].fillna("").astype(str).to_numpy(),
+        # mendeleev stores Shannon's radii in pm
+        "radius_a": (raw["ionic_radius"].astype(float) / 100.0).to_numpy(),
+    })
+    return radii.sort_values(["element", "charge", "coordination", "geometry", "spin"]).reset_index(drop=True)
+
+
+def _cache_paths(directory: Path) -> dict[str, Path]:
+    return {name: directory / f"{name}.parquet" for name in ("elements", "states", "radii")} | {
+        "stamp": directory / "stamp.json"}
+
+
+def build_ion_data() -> IonData:
+    """Build the tables from mendeleev (no cache)."""
+    elements = _build_elements()
+    symbols = elements.set_index("atomic_number")["symbol"]
+    return IonData(elements, _build_states(symbols), _build_radii(symbols), data_version())
+
+
+def _write_atomic(frame: pd.DataFrame, path: Path) -> None:
+    tmp = path.with_suffix(path.suffix + f".tmp{os.getpid()}")
+    frame.to_parquet(tmp, index=False)
+    os.replace(tmp, path)
+
+
+@lru_cache(maxsize=1)
+def load_ion_data() -> IonData:
+    """The ion tables, from the on-disk cache when its stamp matches, else built and cached."""
+    version = data_version()
+    directory = cache_dir() / version
+    paths = _cache_paths(directory)
+    if paths["stamp"].exists() and json.loads(paths["stamp"].read_text()).get("version") == version:
+        elements = pd.read_parquet(paths["elements"]).set_index("symbol", drop=False)
+        return IonData(elements, pd.read_parquet(paths["states"]), pd.read_parquet(paths["radii"]), version)
+    data = build_ion_data()
+    directory.mkdir(parents=True, exist_ok=True)
+    for name in ("elements", "states", "radii"):
+        _write_atomic(getattr(data, name), paths[name])
+    tmp = paths["stamp"].with_suffix(f".tmp{os.getpid()}")
+    tmp.write_text(json.dumps({"version": version}))
+    os.replace(tmp, paths["stamp"])
+    return data
+
+
+# --- look-ups that rules use -------------------------------------------------------------
+
+def element_row(symbol: str) -> pd.Series:
+    elements = load_ion_data().elements
+    if symbol not in elements.index:
+        raise ScreeningError(f"unknown element symbol {symbol!r}")
+    return elements.loc[symbol]
+
+
+def require_element_values(symbols, columns, *, context: str) -> None:
+    """Stop with one clear message if any of ``columns`` is missing for any of ``symbols``."""
+    elements = load_ion_data().elements
+    unknown = sorted(set(symbols) - set(elements.index))
+    if unknown:
+        raise ScreeningError(f"unknown element symbol(s) {', '.join(unknown)}", source=context)
+    block = elements.loc[sorted(set(symbols)), list(columns)]
+    missing = [f"{sym}: {col}" for sym, row in block.iterrows() for col in columns if pd.isna(row[col])]
+    if missing:
+        raise DataMissingError(
+            "no value in the element data for " + "; ".join(missing)
+            + " (mendeleev has none; remove the element from the pool or supply the value)",
+            source=context)
+
+
+def preferred_spin(elements: pd.Series, periods: pd.Series) -> np.ndarray:
+    """High spin for 3d ions, low spin for 4d and 5d ions in oxides (common practice)."""
+    return np.where(periods.to_numpy() <= 4, "HS", "LS")
+
+
+def lookup_radii(query: pd.DataFrame) -> pd.DataFrame:
+    """Shannon radius for each (element, charge, coordination) row of ``query``.
+
+    Returns ``query`` with the columns ``radius_a``, ``spin`` and ``radius_estimated``
+    added.  Where Shannon lists several spin states at that coordination the
+    common-practice spin (see :func:`preferred_spin`) is taken; where he lists
+    both a plain and a square-planar or pyramidal entry, the plain one.  Where the
+    ion has no entry at that coordination but at least two other coordinations,
+    the radius is estimated from a straight line of radius against coordination
+    number through the ion's tabulated values (Shannon's radii grow nearly
+    linearly with coordination for one ion) and ``radius_estimated`` is True.
+    Where neither is possible ``radius_a`` is NaN: the caller decides whether that
+    rejects a candidate; it is never treated as a pass.
+    """
+    data = load_ion_data()
+    keys = query[["element", "charge", "coordination"]].drop_duplicates().reset_index(drop=True)
+    periods = keys["element"].map(data.elements["period"])
+    if periods.isna().any():
+        bad = sorted(keys.loc[periods.isna(), "element"].unique())
+        raise ScreeningError(f"unknown element symbol(s) {', '.join(bad)}")
+    keys["preferred_spin"] = preferred_spin(keys["element"], periods.astype(int))
+
+    table = data.radii.copy()
+    # plain geometry first, then the spin we prefer, then no spin label
+    table["geometry_rank"] = (table["geometry"] != "").astype(int)
+    exact = keys.merge(table, on=["element", "charge", "coordination"], how="left")
+    exact["spin_rank"] = np.select(
+        [exact["spin"] == exact["preferred_spin"], exact["spin"] == ""], [0, 1], default=2)
+    exact = (exact.sort_values(["element", "charge", "coordination", "geometry_rank", "spin_rank"])
+             .drop_duplicates(["element", "charge", "coordination"]))
+    exact["radius_estimated"] = False
+
+    missing = exact["radius_a"].isna()
+    if missing.any():
+        estimates = _estimate_radii(exact.loc[missing, ["element", "charge", "coordination", "preferred_spin"]],
+                                    table)
+        exact = exact.set_index(["element", "charge", "coordination"])
+        estimates = estimates.set_index(["element", "charge", "coordination"])
+        exact.loc[estimates.index, ["radius_a", "spin"]] = estimates[["radius_a", "spin"]].to_numpy()
+        exact.loc[estimates.index, "radius_estimated"] = estimates["radius_a"].notna().to_numpy()
+        exact = exact.reset_index()
+    exact["spin"] = exact["spin"].fillna("").astype(str)
+    exact["radius_a"] = exact["radius_a"].astype(float)
+    exact["radius_estimated"] = exact["radius_estimated"].astype(bool)
+    result = query.merge(exact[["element", "charge", "coordination", "radius_a", "spin", "radius_estimated"]],
+                         on=["element", "charge", "coordination"], how="left")
+    return result
+
+
+def _estimate_radii(missing: pd.DataFrame, table: pd.DataFrame) -> pd.DataFrame:
+    """Least-squares line of radius against coordination per ion (plain geometry only)."""
+    plain = table[table["geometry"] == ""]
+    rows = []
+    # one fit per distinct ion, not per candidate: the ion count is small
+    for (element, charge), group in missing.groupby(["element", "charge"], sort=False):
+        ion = plain[(plain["element"] == element) & (plain["charge"] == charge)]
+        spin = group["preferred_spin"].iloc[0]
+        if (ion["spin"] == spin).any():
+            ion = ion[(ion["spin"] == spin) | (ion["spin"] == "")]
+        else:
+            ion = ion[ion["spin"] == ""] if (ion["spin"] == "").any() else ion
+            spin = ""
+        points = ion.groupby("coordination")["radius_a"].mean()
+        for cn in group["coordination"]:
+            if len(points) >= 2:
+                slope, intercept = np.polyfit(points.index.to_numpy(float), points.to_numpy(), 1)
+                radius = float(slope * cn + intercept)
+            else:
+                radius = np.nan
+            rows.append({"element": element, "charge": int(charge), "coordination": int(cn),
+                         "radius_a": radius, "spin": spin if len(points) >= 2 else ""})
+    return pd.DataFrame(rows, columns=["element", "charge", "coordination", "radius_a", "spin"])
+
+
+def shannon_radius(element: str, charge: int, coordination: int) -> float:
+    """One tabulated or estimated radius in Angstrom; raises if there is none."""
+    row = lookup_radii(pd.DataFrame({"element": [element], "charge": [charge],
+                                     "coordination": [coordination]})).iloc[0]
+    if np.isnan(row["radius_a"]):
+        raise DataMissingError(
+            f"no Shannon radius for {ion_label(element, charge)} at coordination {coordination} "
+            "and too few tabulated coordinations to estimate one")
+    return float(row["radius_a"])
+
+
+def ion_label(element: str, charge: int) -> str:
+    """'Cr', 3 -> 'Cr3+'; 'N', -3 -> 'N3-'; 'F', -1 -> 'F-'; 'Na', 1 -> 'Na+'."""
+    magnitude = abs(int(charge))
+    sign = "+" if charge > 0 else "-"
+    return f"{element}{magnitude if magnitude != 1 else ''}{sign}"
+
+
+_ION_LABEL = re.compile(r"^(?P<element>[A-Z][a-z]?)(?P<magnitude>\d*)(?P<sign>[+-])$")
+
+
+def parse_ion_label(label: str) -> tuple[str, int]:
+    match = _ION_LABEL.match(label.strip())
+    if not match:
+        raise ScreeningError(f"not an ion label like 'Cr3+' or 'N3-': {label!r}")
+    magnitude = int(match["magnitude"] or 1)
+    return match["element"], magnitude if match["sign"] == "+" else -magnitude
+
+
+def oxidation_states(element: str) -> pd.DataFrame:
+    states = load_ion_data().states
+    return states[states["element"] == element]

@@ -1,0 +1,280 @@
+"""The stages of a screen as plain functions; the Snakefile calls each through a thin rule.
+
+prepare_hosts   host library -> checked hosts, split in shards (JSON)
+screen_shard    enumerate placements, single-ion rules, pairs, charge balance, composition scarcity
+edge_shard      Butler–Ginley band edges, absorption onset, STH limit
+rank            alignment at the rule set's pH, alignment rule, score and rank
+assemble        shortlist.csv, rejected.parquet, funnel.csv
+
+Each function takes file paths and exactly the rule-set sections it uses, so
+that a change of one criterion reruns only the stages that depend on it.
+Files are written atomically (temporary name, then rename), so no stage ever
+reads a half-written file.
+"""
+from __future__ import annotations
+
+import json
+import os
+from fractions import Fraction
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from screening import bands, enumerate as enum, hosts as hostlib, ions, pools, solar
+from screening.filters import charge_balance, empty_rejected, oxidation_state, radius_mismatch
+from screening.filters import scarcity as scarcity_rules
+
+FUNNEL_COLUMNS = ["host", "rule", "candidates_in", "candidates_out", "removed"]
+
+
+# --- file helpers ------------------------------------------------------------------------
+
+def _atomic(path: Path, write) -> None:
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    tmp = path.with_name(f".{path.name}.tmp{os.getpid()}")
+    write(tmp)
+    os.replace(tmp, path)
+
+
+def write_parquet(frame: pd.DataFrame, path) -> None:
+    _atomic(path, lambda tmp: frame.to_parquet(tmp, index=False))
+
+
+def write_csv(frame: pd.DataFrame, path) -> None:
+    _atomic(path, lambda tmp: frame.to_csv(tmp, index=False, lineterminator="\n", float_format="%.6g"))
+
+
+def write_json(document, path) -> None:
+    _atomic(path, lambda tmp: Path(tmp).write_text(json.dumps(document, indent=2, sort_keys=True) + "\n"))
+
+
+# --- stage 1: hosts ----------------------------------------------------------------------
+
+def shard_count(n_hosts: int, shard_size: int) -> int:
+    return max(1, -(-n_hosts // shard_size))
+
+
+def prepare_hosts(hosts_file, shard_size: int, out_json) -> list[hostlib.Host]:
+    hosts = hostlib.load_hosts(hosts_file)
+    records = hostlib.hosts_to_records(hosts)
+    n = shard_count(len(hosts), shard_size)
+    for i, record in enumerate(records):
+        record["shard"] = i // shard_size
+    write_json({"hosts_file": str(hosts_file), "library_sha256": hostlib.library_hash(hosts_file),
+                "shards": n, "hosts": records}, out_json)
+    return hosts
+
+
+def read_hosts(hosts_json, shard: int | None = None) -> dict[str, hostlib.Host]:
+    document = json.loads(Path(hosts_json).read_text())
+    records = [r for r in document["hosts"] if shard is None or r["shard"] == shard]
+    for r in records:
+        r.pop("shard", None)
+    return {h.id: h for h in hostlib.hosts_from_records(records)}
+
+
+# --- stage 2: enumerate and filter -------------------------------------------------------
+
+def _implied_count(placements: pd.DataFrame, host_ids, enumeration: dict) -> pd.Series:
+    """Candidates a set of placements would give, per host, without building the pairs."""
+    count = pd.Series(0, index=list(host_ids), dtype=np.int64)
+    if enumeration["singles"]:
+        count = count.add(placements.groupby("host").size(), fill_value=0)
+    if enumeration["pairs"]:
+        acceptors = placements[placements["delta"] < 0].groupby("host").size()
+        donors = placements[placements["delta"] > 0].groupby("host").size()
+        count = count.add(acceptors.mul(donors, fill_value=0), fill_value=0)
+    return count.astype(np.int64)
+
+
+def _funnel_rows(rule: str, before: pd.Series, after: pd.Series) -> pd.DataFrame:
+    after = after.reindex(before.index, fill_value=0)
+    return pd.DataFrame({"host": before.index, "rule": rule, "candidates_in": before.to_numpy(),
+                         "candidates_out": after.to_numpy(), "removed": (before - after).to_numpy()})
+
+
+def screen_shard(hosts_json, shard: int, pool_file, enumeration: dict, filters: dict, scarcity: dict,
+                 kept_out, rejected_out, funnel_out) -> pd.DataFrame:
+    hosts = read_hosts(hosts_json, shard)
+    host_ids = sorted(hosts)
+    pool = pools.pool_ions(pools.load_pool(pool_file))
+    placed = enum.placements(hostlib.sites_frame(list(hosts.values())), pool)
+
+    funnel, rejected = [], []
+    count = _implied_count(placed, host_ids, enumeration)
+    enumerated = count
+    for rule, apply_rule in (
+            ("oxidation_state", lambda p: oxidation_state.apply(p, filters["oxidation_state"])),
+            ("radius_mismatch", lambda p: radius_mismatch.apply(p, filters["radius_mismatch"])),
+            ("radioactive", lambda p: scarcity_rules.apply_radioactive(p, scarcity)),
+            ("abundance", lambda p: scarcity_rules.apply_abundance(p, scarcity))):
+        placed, removed = apply_rule(placed)
+        rejected.append(removed)
+        new_count = _implied_count(placed, host_ids, enumeration)
+        funnel.append(_funnel_rows(rule, count, new_count))
+        count = new_count
+
+    dopant_fraction = Fraction(str(enumeration["dopant_fraction"]))
+    candidates = enum.combine(placed, enumeration, dopant_fraction)
+    if len(candidates) != int(count.sum()):
+        raise AssertionError(f"pair count {len(candidates)} differs from the implied count {int(count.sum())}")
+    candidates, removed = charge_balance.apply(candidates, filters["charge_balance"])
+    rejected.append(removed)
+    after = candidates.groupby("host").size()
+    funnel.append(_funnel_rows("charge_balance", count, after))
+    count = after.reindex(host_ids, fill_value=0)
+
+    amounts = enum.candidate_amounts(candidates, hosts)
+    candidates, removed, metrics = scarcity_rules.apply_composition(candidates, amounts, scarcity)
+    if removed is not None:
+        rejected.append(removed)
+    for rule, key in scarcity_rules.COMPOSITION_RULES.items():
+        if scarcity[key] is None:
+            continue
+        gone = (removed[removed["rule"] == rule].groupby("host").size()
+                .reindex(host_ids, fill_value=0).astype(np.int64))
+        funnel.append(_funnel_rows(rule, count, count - gone))
+        count = count - gone
+    kept = pd.concat([candidates.reset_index(drop=True), metrics.reset_index(drop=True)], axis=1)
+    write_parquet(kept, kept_out)
+    frames = [r for r in rejected if r is not None and len(r)]
+    write_parquet(pd.concat(frames, ignore_index=True) if frames else empty_rejected(), rejected_out)
+    funnel_frame = pd.concat(funnel, ignore_index=True)
+    funnel_frame.insert(2, "enumerated", funnel_frame["host"].map(enumerated))
+    write_csv(funnel_frame, funnel_out)
+    return kept
+
+
+# --- stage 3: band edges -----------------------------------------------------------------
+
+def edge_shard(hosts_json, shard: int, kept_file, edges_out) -> pd.DataFrame:
+    hosts = read_hosts(hosts_json, shard)
+    kept = pd.read_parquet(kept_file)
+    amounts = enum.candidate_amounts(kept, hosts) if len(kept) else pd.DataFrame()
+    gap = kept["host"].map({h: host.gap_ev for h, host in hosts.items()}).to_numpy(float)
+    chi = bands.electronegativity_of_amounts(amounts) if len(kept) else np.array([])
+    cbm, vbm = bands.band_edges(chi, gap, ph=0.0)
+    # First depth: the absorption onset is the host gap; dopant-induced levels come later.
+    onset = gap
+    edges = pd.DataFrame({
+        "candidate_id": kept["candidate_id"].to_numpy(), "chi_ev": chi,
+        "cbm_v_nhe_ph0": np.atleast_1d(cbm), "vbm_v_nhe_ph0": np.atleast_1d(vbm),
+        "host_gap_ev": gap, "onset_ev": onset,
+        "sth_limit": solar.sth_limit(onset) if len(kept) else np.array([]),
+    })
+    write_parquet(edges, edges_out)
+    return edges
+
+
+# --- stage 4: rank -----------------------------------------------------------------------
+
+STH_REFERENCE = 0.179
+"""STH limit of a 2.0 eV absorber under AM1.5G, the usual single-absorber target: the STH term's unit."""
+MARGIN_SCALE_V = 0.5
+COST_DECADES = 4.0
+ABUNDANCE_DECADES = 6.0
+
+
+def score_terms(frame: pd.DataFrame, strain_limit: float) -> pd.DataFrame:
+    """Dimensionless terms of the score (larger is better), on fixed scales so reruns compare."""
+    strain = np.fmax(frame["dopant_mismatch"].to_numpy(float),
+                     np.nan_to_num(frame["codopant_mismatch"].to_numpy(float), nan=0.0))
+    return pd.DataFrame({
+        "term_sth": frame["sth_limit"].to_numpy(float) / STH_REFERENCE,
+        "term_alignment": np.clip(frame["alignment_margin_v"].to_numpy(float) / MARGIN_SCALE_V, -1, 1),
+        "term_cost": -np.log10(np.fmax(frame["cost_usd_per_kg"].to_numpy(float), 1e-2)) / COST_DECADES,
+        "term_abundance": np.log10(np.fmax(frame["scarcest_abundance_ppm"].to_numpy(float), 1e-6))
+        / ABUNDANCE_DECADES,
+        "term_strain": -strain / strain_limit if strain_limit > 0 else -strain,
+    }, index=frame.index)
+
+
+def rank(hosts_json, kept_files, edge_files, alignment: dict, ranking: dict, strain_limit: float,
+         ranked_out, rejected_out, funnel_out) -> pd.DataFrame:
+    hosts = read_hosts(hosts_json)
+    kept = pd.concat([pd.read_parquet(f) for f in kept_files], ignore_index=True)
+    edges = pd.concat([pd.read_parquet(f) for f in edge_files], ignore_index=True)
+    frame = kept.merge(edges, on="candidate_id", how="inner", validate="one_to_one")
+    if len(frame) != len(kept):
+        raise AssertionError("band-edge stage lost candidates")
+    ph = float(alignment["ph"])
+    shift = -bands.NERNST_SLOPE_V * ph
+    frame["cbm_v_nhe"] = frame["cbm_v_nhe_ph0"] + shift
+    frame["vbm_v_nhe"] = frame["vbm_v_nhe_ph0"] + shift
+    her, oer = bands.alignment_margins(frame["cbm_v_nhe"], frame["vbm_v_nhe"], ph,
+                                       alignment["her_overpotential_v"], alignment["oer_overpotential_v"])
+    frame["her_margin_v"], frame["oer_margin_v"] = her, oer
+    mode = alignment["mode"]
+    margin = {"overall": np.minimum(her, oer), "hydrogen": her, "oxygen": oer}[mode]
+    frame["alignment_margin_v"] = margin
+
+    from screening.filters import alignment as alignment_rule
+
+    frame, removed = alignment_rule.apply(frame, alignment)
+    host_ids = sorted(hosts)
+    before = kept.groupby("host").size().reindex(host_ids, fill_value=0)
+    after = frame.groupby("host").size().reindex(host_ids, fill_value=0)
+    write_csv(_funnel_rows("alignment", before, after), funnel_out)
+    write_parquet(removed, rejected_out)
+
+    weights = ranking["weights"]
+    terms = score_terms(frame, strain_limit)
+    frame = pd.concat([frame, terms], axis=1)
+    frame["score"] = sum(weights[name] * terms[f"term_{name}"] for name in weights)
+    frame = frame.sort_values(["score", "candidate_id"], ascending=[False, True], kind="stable")
+    frame["rank"] = np.arange(1, len(frame) + 1)
+    if ranking["top"] is not None:
+        frame = frame.head(int(ranking["top"]))
+    frame["formula"] = [enum.candidate_formula(row, hosts[row["host"]]) for _, row in frame.iterrows()]
+    write_parquet(frame.reset_index(drop=True), ranked_out)
+    return frame
+
+
+# --- stage 5: assemble outputs -----------------------------------------------------------
+
+SHORTLIST_COLUMNS = [
+    "rank", "candidate_id", "host", "dopant", "dopant_site", "codopant", "codopant_site", "ratio",
+    "compensation", "defects", "formula", "dopant_fraction", "codopant_fraction", "dopant_mismatch",
+    "codopant_mismatch", "radius_estimated", "chi_ev", "cbm_v_nhe", "vbm_v_nhe", "her_margin_v", "oer_margin_v",
+    "onset_ev", "sth_limit", "cost_usd_per_kg", "hhi_production", "scarcest_element", "critical_elements",
+    "score",
+]
+
+
+def assemble(ranked_file, rejected_files, funnel_files, shortlist_out, rejected_out, funnel_out) -> None:
+    ranked = pd.read_parquet(ranked_file)
+    shortlist = pd.DataFrame({
+        "rank": ranked["rank"], "candidate_id": ranked["candidate_id"], "host": ranked["host"],
+        "dopant": ranked["dopant_ion"], "dopant_site": ranked["dopant_site"],
+        "codopant": ranked["codopant_ion"], "codopant_site": ranked["codopant_site"],
+        "ratio": ranked["ratio"], "compensation": ranked["compensation"], "defects": ranked["defects"],
+        "formula": ranked["formula"], "dopant_fraction": ranked["dopant_fraction"],
+        "codopant_fraction": ranked["codopant_fraction"], "dopant_mismatch": ranked["dopant_mismatch"],
+        "codopant_mismatch": ranked["codopant_mismatch"],
+        "radius_estimated": ranked["dopant_radius_estimated"] | ranked["codopant_radius_estimated"],
+        "chi_ev": ranked["chi_ev"], "cbm_v_nhe": ranked["cbm_v_nhe"], "vbm_v_nhe": ranked["vbm_v_nhe"],
+        "her_margin_v": ranked["her_margin_v"], "oer_margin_v": ranked["oer_margin_v"],
+        "onset_ev": ranked["onset_ev"], "sth_limit": ranked["sth_limit"],
+        "cost_usd_per_kg": ranked["cost_usd_per_kg"], "hhi_production": ranked["hhi_production"],
+        "scarcest_element": ranked["scarcest_element"], "critical_elements": ranked["critical_elements"],
+        "score": ranked["score"],
+    })[SHORTLIST_COLUMNS]
+    write_csv(shortlist, shortlist_out)
+    frames = [pd.read_parquet(f) for f in rejected_files]
+    frames = [f for f in frames if len(f)]
+    rejected = pd.concat(frames, ignore_index=True) if frames else empty_rejected()
+    rejected = rejected.sort_values(["host", "rule", "dopant", "dopant_site", "codopant", "codopant_site"],
+                                    kind="stable").reset_index(drop=True)
+    write_parquet(rejected, rejected_out)
+    funnel = pd.concat([pd.read_csv(f, keep_default_na=False) for f in funnel_files], ignore_index=True)
+    order = {rule: i for i, rule in enumerate(FUNNEL_ORDER)}
+    funnel = funnel.assign(_order=funnel["rule"].map(order)).sort_values(["host", "_order"], kind="stable")
+    enumerated = funnel.groupby("host")["enumerated"].max()
+    funnel["enumerated"] = funnel["host"].map(enumerated).astype(np.int64)
+    write_csv(funnel.drop(columns="_order"), funnel_out)
+
+
+FUNNEL_ORDER = ["oxidation_state", "radius_mismatch", "radioactive", "abundance", "charge_balance", "cost",
+                "hhi_production", "hhi_reserves", "alignment"]
