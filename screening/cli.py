@@ -47,13 +47,19 @@ def build_parser() -> argparse.ArgumentParser:
     sub = parser.add_subparsers(dest="command", required=True)
     _run_parser(sub)
     _edges_parser(sub)
-    try:
-        from screening import audit
-    except ImportError:  # the audit module is optional until it lands
-        audit = None
-    if audit is not None:
-        audit.register(sub)
+    for module in _command_modules():
+        module.register(sub)
     return parser
+
+
+# Sub-commands that live in their own module, each with register(subparsers) and run(args) -> int.
+COMMAND_MODULES = ["audit"]
+
+
+def _command_modules():
+    import importlib
+
+    return [importlib.import_module(f"screening.{name}") for name in COMMAND_MODULES]
 
 
 def _version() -> str:
@@ -126,9 +132,9 @@ def main(argv: list[str] | None = None) -> int:
             return cmd_run(args)
         if args.command == "edges":
             return cmd_edges(args)
-        from screening import audit
+        import importlib
 
-        return audit.run(args)
+        return importlib.import_module(f"screening.{args.command}").run(args)
     except ScreeningError as exc:
         print(f"screening: error: {exc}", file=sys.stderr)
         return 2

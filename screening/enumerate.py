@@ -230,7 +230,21 @@ def candidate_amounts(candidates: pd.DataFrame, hosts: dict[str, Host]) -> pd.Da
 
 
 def candidate_formula(row: pd.Series, host: Host) -> str:
-    """Exact formula of one candidate, e.g. Sr0.98La0.02Ti0.98Cr0.02O3 (used for survivors only)."""
+    """Formula of one candidate, e.g. Sr0.98La0.02Ti0.98Cr0.02O3 (used for survivors only).
+
+    Amounts that are not finite decimals (a 1:3 pair at 2 %) are rounded to 4 decimals for
+    display; :func:`candidate_composition` gives the exact amounts.
+    """
+    amounts, order = _composition(row, host)
+    return format_formula(amounts, order)
+
+
+def candidate_composition(row: pd.Series, host: Host) -> dict[str, Fraction]:
+    """Exact amounts per formula unit of one candidate."""
+    return _composition(row, host)[0]
+
+
+def _composition(row: pd.Series, host: Host) -> tuple[dict[str, Fraction], list[str]]:
     den = int(row["amount_den"])
     amounts: dict[str, Fraction] = {}
     order: list[str] = []
@@ -245,7 +259,7 @@ def candidate_formula(row: pd.Series, host: Host) -> str:
             _add(amounts, order, element, amount)
     _add(amounts, order, host.anion.element,
          Fraction(host.anion.multiplicity) - Fraction(int(row["vacancy_num"]), den))
-    return format_formula(amounts, order)
+    return amounts, order
 
 
 def _add(amounts: dict, order: list, element: str, amount: Fraction) -> None:

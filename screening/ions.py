@@ -17,7 +17,7 @@ Sources
   ``chi_source``.
 * Crustal abundance (ppm), price (USD/kg), relative supply risk and radioactivity:
   mendeleev's ``elements`` table (its documentation names the CRC Handbook for
-  abundance and the British Geological Survey risk list for supply risk).
+  abundance and the Royal Society of Chemistry periodic table for supply risk).
 
 The tables are built once from the two libraries and cached on disk as Parquet
 with a version stamp; a change of either library or of :data:`TABLE_VERSION`
@@ -241,9 +241,10 @@ def lookup_radii(query: pd.DataFrame) -> pd.DataFrame:
     common-practice spin (see :func:`preferred_spin`) is taken; where he lists
     both a plain and a square-planar or pyramidal entry, the plain one.  Where the
     ion has no entry at that coordination but at least two other coordinations,
-    the radius is estimated from a straight line of radius against coordination
-    number through the ion's tabulated values (Shannon's radii grow nearly
-    linearly with coordination for one ion) and ``radius_estimated`` is True.
+    the radius is estimated from a straight line of radius against ln(CN)
+    through the ion's tabulated radii at the three coordinations nearest the
+    target (see :func:`_line_estimates`; its held-out error is measured by
+    :func:`radius_estimation_errors`) and ``radius_estimated`` is True.
     Where neither is possible ``radius_a`` is NaN: the caller decides whether that
     rejects a candidate; it is never treated as a pass.
     """
@@ -282,29 +283,99 @@ def lookup_radii(query: pd.DataFrame) -> pd.DataFrame:
     return result
 
 
+ESTIMATE_NEAREST = 3
+"""Tabulated coordinations of one ion that the estimate of a missing radius is fitted through."""
+
+
+def _estimation_points(table: pd.DataFrame, keys: pd.DataFrame) -> pd.DataFrame:
+    """The tabulated points an estimate for each ion of ``keys`` is fitted through.
+
+    Plain geometry only; the ion's preferred spin (and unlabelled entries) where
+    Shannon lists that spin, else the unlabelled entries, else all of them; one
+    mean radius per coordination.  Returns element, charge, coordination,
+    radius_a and the spin the points stand for ('' when none).
+    """
+    ions_wanted = keys[["element", "charge", "preferred_spin"]].drop_duplicates(["element", "charge"])
+    plain = table[table["geometry"] == ""].merge(ions_wanted, on=["element", "charge"], how="inner")
+    by_ion = plain.assign(is_pref=plain["spin"] == plain["preferred_spin"], is_blank=plain["spin"] == "")
+    has_pref = by_ion.groupby(["element", "charge"])["is_pref"].transform("any")
+    has_blank = by_ion.groupby(["element", "charge"])["is_blank"].transform("any")
+    use = np.where(has_pref, by_ion["is_pref"] | by_ion["is_blank"],
+                   np.where(has_blank, by_ion["is_blank"], True))
+    chosen = by_ion[use].assign(point_spin=np.where(has_pref[use], by_ion.loc[use, "preferred_spin"], ""))
+    return (chosen.groupby(["element", "charge", "coordination"], as_index=False)
+            .agg(radius_a=("radius_a", "mean"), spin=("point_spin", "first")))
+
+
+def _line_estimates(targets: pd.DataFrame, points: pd.DataFrame, *, leave_out: bool = False) -> pd.DataFrame:
+    """Radius at each target coordination from a line of radius against ln(CN).
+
+    The line is fitted by least squares through the ion's :data:`ESTIMATE_NEAREST`
+    tabulated coordinations nearest the target (nearer first, the lower one on a
+    tie); with only two it is the line through both, with fewer the estimate is NaN.
+    ``leave_out``: ignore a point at the target's own coordination (the held-out
+    test of the method).  Vectorised: one merge and grouped sums, no loop over ions.
+    """
+    t = targets[["element", "charge", "coordination"]].drop_duplicates().reset_index(drop=True)
+    t["target"] = np.arange(len(t))
+    pairs = t.merge(points.rename(columns={"coordination": "point_cn", "radius_a": "point_r"}),
+                    on=["element", "charge"], how="inner")
+    if leave_out:
+        pairs = pairs[pairs["point_cn"] != pairs["coordination"]]
+    pairs = pairs.assign(distance=(pairs["point_cn"] - pairs["coordination"]).abs())
+    pairs = pairs.sort_values(["target", "distance", "point_cn"], kind="stable")
+    pairs = pairs[pairs.groupby("target").cumcount() < ESTIMATE_NEAREST]
+    x = np.log(pairs["point_cn"].to_numpy(float))
+    y = pairs["point_r"].to_numpy(float)
+    sums = pd.DataFrame({"target": pairs["target"].to_numpy(), "n": 1.0, "x": x, "y": y, "xx": x * x,
+                         "xy": x * y}).groupby("target").sum()
+    spin = pairs.groupby("target")["spin"].first()
+    denominator = sums["n"] * sums["xx"] - sums["x"] ** 2
+    # two or more distinct coordinations give a non-zero denominator
+    fit = (sums["n"] >= 2) & (denominator > 1e-12)
+    slope = (sums["n"] * sums["xy"] - sums["x"] * sums["y"]) / denominator.where(fit)
+    intercept = (sums["y"] - slope * sums["x"]) / sums["n"]
+    radius = slope * np.log(t.loc[sums.index, "coordination"].to_numpy(float)) + intercept
+    t["radius_a"] = radius.reindex(t["target"]).to_numpy(float)
+    t["spin"] = spin.where(fit).reindex(t["target"]).fillna("").to_numpy()
+    return t.drop(columns="target")
+
+
 def _estimate_radii(missing: pd.DataFrame, table: pd.DataFrame) -> pd.DataFrame:
-    """Least-squares line of radius against coordination per ion (plain geometry only)."""
-    plain = table[table["geometry"] == ""]
-    rows = []
-    # one fit per distinct ion, not per candidate: the ion count is small
-    for (element, charge), group in missing.groupby(["element", "charge"], sort=False):
-        ion = plain[(plain["element"] == element) & (plain["charge"] == charge)]
-        spin = group["preferred_spin"].iloc[0]
-        if (ion["spin"] == spin).any():
-            ion = ion[(ion["spin"] == spin) | (ion["spin"] == "")]
-        else:
-            ion = ion[ion["spin"] == ""] if (ion["spin"] == "").any() else ion
-            spin = ""
-        points = ion.groupby("coordination")["radius_a"].mean()
-        for cn in group["coordination"]:
-            if len(points) >= 2:
-                slope, intercept = np.polyfit(points.index.to_numpy(float), points.to_numpy(), 1)
-                radius = float(slope * cn + intercept)
-            else:
-                radius = np.nan
-            rows.append({"element": element, "charge": int(charge), "coordination": int(cn),
-                         "radius_a": radius, "spin": spin if len(points) >= 2 else ""})
-    return pd.DataFrame(rows, columns=["element", "charge", "coordination", "radius_a", "spin"])
+    """Estimated radius of each (element, charge, coordination) of ``missing`` (see :func:`_line_estimates`)."""
+    points = _estimation_points(table, missing)
+    return _line_estimates(missing, points)[["element", "charge", "coordination", "radius_a", "spin"]]
+
+
+def radius_estimation_errors(min_coordinations: int = 3) -> pd.DataFrame:
+    """The estimate tested on Shannon's own radii: leave one coordination out.
+
+    For every ion (element, charge, in the spin the look-up would use) with at
+    least ``min_coordinations`` tabulated coordinations, each tabulated radius
+    is hidden in turn and estimated from the others.  Returns element, charge,
+    coordination, radius_a (tabulated), estimate_a, error_a (estimate minus
+    tabulated) and extrapolated (the hidden coordination lies outside the
+    others' range, as a 12-fold A site usually does).
+    """
+    data = load_ion_data()
+    table = data.radii
+    ion_keys = table[["element", "charge"]].drop_duplicates()
+    periods = ion_keys["element"].map(data.elements["period"]).astype(int)
+    ion_keys = ion_keys.assign(preferred_spin=preferred_spin(ion_keys["element"], periods))
+    points = _estimation_points(table, ion_keys)
+    count = points.groupby(["element", "charge"])["coordination"].transform("size")
+    points = points[count >= min_coordinations].reset_index(drop=True)
+    estimates = _line_estimates(points, points, leave_out=True)
+    out = points[["element", "charge", "coordination", "radius_a"]].merge(
+        estimates.rename(columns={"radius_a": "estimate_a"})[["element", "charge", "coordination", "estimate_a"]],
+        on=["element", "charge", "coordination"], how="left")
+    out["error_a"] = out["estimate_a"] - out["radius_a"]
+    span = points.groupby(["element", "charge"])["coordination"].agg(["min", "max"])
+    lo = out.set_index(["element", "charge"]).index.map(span["min"])
+    hi = out.set_index(["element", "charge"]).index.map(span["max"])
+    out["extrapolated"] = (out["coordination"].to_numpy() == np.asarray(lo)) | (
+        out["coordination"].to_numpy() == np.asarray(hi))
+    return out
 
 
 def shannon_radius(element: str, charge: int, coordination: int) -> float:

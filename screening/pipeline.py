@@ -13,8 +13,11 @@ reads a half-written file.
 """
 from __future__ import annotations
 
+import contextlib
 import json
+import logging
 import os
+import time
 from fractions import Fraction
 from pathlib import Path
 
@@ -25,10 +28,35 @@ from screening import bands, enumerate as enum, hosts as hostlib, ions, pools, s
 from screening.filters import charge_balance, empty_rejected, oxidation_state, radius_mismatch
 from screening.filters import scarcity as scarcity_rules
 
-FUNNEL_COLUMNS = ["host", "rule", "candidates_in", "candidates_out", "removed"]
+FUNNEL_COLUMNS = ["host", "rule", "enumerated", "candidates_in", "candidates_out", "removed"]
+log = logging.getLogger("screening")
 
 
 # --- file helpers ------------------------------------------------------------------------
+
+@contextlib.contextmanager
+def stage_log(path, stage: str):
+    """Log a stage's start, end, wall time and outcome to its Snakemake log file."""
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    handler = logging.FileHandler(path, mode="w", encoding="utf-8")
+    handler.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(message)s"))
+    logger = logging.getLogger("screening")
+    logger.addHandler(handler)
+    logger.setLevel(logging.INFO)
+    start = time.perf_counter()
+    logger.info("stage %s started", stage)
+    try:
+        yield logger
+    except Exception:
+        logger.exception("stage %s failed", stage)
+        raise
+    else:
+        logger.info("stage %s finished in %.2f s", stage, time.perf_counter() - start)
+    finally:
+        logger.removeHandler(handler)
+        handler.close()
+
 
 def _atomic(path: Path, write) -> None:
     path = Path(path)
@@ -138,6 +166,8 @@ def screen_shard(hosts_json, shard: int, pool_file, enumeration: dict, filters: 
         funnel.append(_funnel_rows(rule, count, count - gone))
         count = count - gone
     kept = pd.concat([candidates.reset_index(drop=True), metrics.reset_index(drop=True)], axis=1)
+    log.info("shard %d: %d hosts, %d candidates enumerated, %d kept", shard, len(hosts),
+             int(enumerated.sum()), len(kept))
     write_parquet(kept, kept_out)
     frames = [r for r in rejected if r is not None and len(r)]
     write_parquet(pd.concat(frames, ignore_index=True) if frames else empty_rejected(), rejected_out)
@@ -228,6 +258,7 @@ def rank(hosts_json, kept_files, edge_files, alignment: dict, ranking: dict, str
     if ranking["top"] is not None:
         frame = frame.head(int(ranking["top"]))
     frame["formula"] = [enum.candidate_formula(row, hosts[row["host"]]) for _, row in frame.iterrows()]
+    log.info("ranked %d candidates (%d removed by alignment)", len(frame), len(removed))
     write_parquet(frame.reset_index(drop=True), ranked_out)
     return frame
 
