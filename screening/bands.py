@@ -19,6 +19,10 @@ edge by +0.06 V.)
 Oxide band edges follow the Nernstian shift of -0.0592 V per pH unit (common
 practice), as do the water redox levels, so alignment on the RHE scale does not
 depend on pH; potentials are reported vs NHE at the rule set's pH.
+
+:func:`alignment_probability` turns the margins into the probability that the true edges clear them,
+for Gaussian edge errors (the calibration's leave-one-out sigma); its docstring derives the joint
+probability when one error moves both edges (VBM = CBM + gap).
 """
 from __future__ import annotations
 
@@ -91,3 +95,45 @@ def alignment_margins(cbm_v, vbm_v, ph: float, her_overpotential_v: float, oer_o
     her_margin = (hydrogen - her_overpotential_v) - np.asarray(cbm_v, dtype=float)
     oer_margin = np.asarray(vbm_v, dtype=float) - (oxygen + oer_overpotential_v)
     return her_margin, oer_margin
+
+
+def alignment_probability(her_margin_v, oer_margin_v, cbm_sigma_v, occupied_sigma_v, shared_error,
+                          mode: str = "overall"):
+    """Probability that the true edges clear the water levels plus overpotentials.
+
+    Model: the true CBM is the estimate plus an error e_c ~ N(0, cbm_sigma^2); the true highest occupied
+    level (VBM or dopant level) is its estimate plus e_o ~ N(0, occupied_sigma^2).  Hydrogen evolution
+    needs e_c < her_margin, oxygen evolution e_o > -oer_margin (margins as :func:`alignment_margins` gives,
+    with the occupied level in place of the VBM).
+
+    * ``shared_error`` true (the occupied level is the VBM = CBM + gap, or a dopant level measured in this
+      composition, placed at a fixed depth below the CBM): e_o = e_c, one error moves both, and
+      P = P(-oer_margin < e < her_margin) = max(0, Phi(her/s) + Phi(oer/s) - 1).
+      Multiplying the two marginals instead would be wrong: with one shared error the two events pull in
+      opposite directions (an error that moves both edges up in energy helps hydrogen and hurts oxygen),
+      they are negatively dependent, and the product overstates P (Phi(a) + Phi(b) - 1 <= Phi(a) Phi(b)).
+    * ``shared_error`` false (a level transferred from other hosts, whose error is that of the reference
+      host's edges, independent of this host's): P = Phi(her/s_c) * Phi(oer/s_o).
+
+    ``mode`` hydrogen or oxygen (one absorber of a two-absorber scheme): only that marginal.
+    Vectorised over arrays; sigmas must be > 0.
+    """
+    from scipy.special import ndtr
+
+    her = np.asarray(her_margin_v, dtype=float)
+    oer = np.asarray(oer_margin_v, dtype=float)
+    s_c = np.asarray(cbm_sigma_v, dtype=float)
+    s_o = np.asarray(occupied_sigma_v, dtype=float)
+    if np.any(~np.isfinite(s_c) | (s_c <= 0)) or np.any(~np.isfinite(s_o) | (s_o <= 0)):
+        raise ValueError("edge uncertainties must be finite and > 0")
+    p_her = ndtr(her / s_c)
+    if mode == "hydrogen":
+        return p_her
+    shared = np.asarray(shared_error, dtype=bool)
+    # with one shared error the oxygen condition is on the same e, so its sigma is the CBM's
+    p_oer = ndtr(oer / np.where(shared, s_c, s_o))
+    if mode == "oxygen":
+        return p_oer
+    if mode != "overall":
+        raise ValueError(f"alignment mode {mode!r} is not one of overall, hydrogen, oxygen")
+    return np.where(shared, np.clip(p_her + p_oer - 1.0, 0.0, 1.0), p_her * p_oer)

@@ -53,7 +53,7 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 # Sub-commands that live in their own module, each with register(subparsers) and run(args) -> int.
-COMMAND_MODULES = ["audit"]
+COMMAND_MODULES = ["audit", "diff", "explain"]
 
 
 def _command_modules():
@@ -69,7 +69,8 @@ def _version() -> str:
 
 
 def cmd_edges(args) -> int:
-    from screening import bands, solar
+    """Raw Butler–Ginley edges (the keys cbm_v_nhe / vbm_v_nhe, unchanged) and the calibrated edges with sigma."""
+    from screening import bands, calibration, solar
     from screening.formulas import parse_formula
 
     if not 0 < args.gap <= 12:
@@ -79,15 +80,30 @@ def cmd_edges(args) -> int:
     composition = parse_formula(args.formula, source="formula")
     chi = bands.electronegativity(composition)
     cbm, vbm = bands.band_edges(chi, args.gap, ph=args.ph)
+    cal = calibration.load_calibration()
+    cbm_cal, vbm_cal, cbm_sigma, vbm_sigma = calibration.calibrated_edges(cbm, vbm, args.gap, ph=args.ph,
+                                                                          calibration=cal)
     sth = float(solar.sth_limit(args.gap))
     result = {"formula": args.formula, "gap_ev": args.gap, "ph": args.ph, "chi_ev": round(chi, 4),
-              "cbm_v_nhe": round(cbm, 4), "vbm_v_nhe": round(vbm, 4), "sth_limit": round(sth, 5),
-              "free_electron_ev": bands.FREE_ELECTRON_EV}
+              "cbm_v_nhe": round(cbm, 4), "vbm_v_nhe": round(vbm, 4),
+              "cbm_calibrated_v_nhe": round(cbm_cal, 4), "vbm_calibrated_v_nhe": round(vbm_cal, 4),
+              "cbm_sigma_v": round(cbm_sigma, 4), "vbm_sigma_v": round(vbm_sigma, 4),
+              "calibration": {"model": cal.model, "slope": round(cal.slope, 4),
+                              "intercept_v": round(cal.intercept, 4), "n_reference": cal.n,
+                              "loo_rmse_v": round(cal.loo_rmse_v, 4), "loo_mae_v": round(cal.loo_mae_v, 4),
+                              "data_version": cal.data_version},
+              "sth_limit": round(sth, 5), "free_electron_ev": bands.FREE_ELECTRON_EV}
     if args.json:
         print(json.dumps(result))
     else:
-        print(f"{args.formula}: chi = {chi:.3f} eV (Butler–Ginley, E_e = {bands.FREE_ELECTRON_EV} eV)")
-        print(f"  CBM {cbm:+.3f} V vs NHE, VBM {vbm:+.3f} V vs NHE at pH {args.ph:g} (gap {args.gap:g} eV)")
+        scale = f"V vs NHE at pH {args.ph:g}"
+        print(f"{args.formula}: chi = {chi:.3f} eV (Butler–Ginley, E_e = {bands.FREE_ELECTRON_EV} eV), "
+              f"gap {args.gap:g} eV")
+        print(f"  raw Butler–Ginley:  CBM {cbm:+.3f}, VBM {vbm:+.3f} {scale}")
+        print(f"  calibrated:         CBM {cbm_cal:+.3f} ± {cbm_sigma:.3f}, VBM {vbm_cal:+.3f} ± {vbm_sigma:.3f} "
+              f"{scale}")
+        print(f"    ({cal.model}, {cal.n} measured edges, slope {cal.slope:.3f}, intercept {cal.intercept:+.3f} V; "
+              f"± is the leave-one-out RMSE, one sigma; data {cal.data_version})")
         print(f"  STH limit (AM1.5G, unit quantum yield): {100 * sth:.2f} %")
     return 0
 
@@ -96,28 +112,36 @@ def cmd_run(args) -> int:
     import shlex
     import subprocess
 
-    from screening import hosts, pools, rulesets
+    from screening import pools, rulesets, structures
 
     # Check everything that enters before any work, so bad input leaves nothing behind.
     rules = rulesets.load_ruleset(args.rules)
-    hosts.load_hosts(rules.hosts_path)
+    structures.load_screen_hosts(rules)  # the host library plus the rule set's CIF structures, if any
     pools.load_pool(rules.pool_path)
     if args.cores < 1:
         raise ScreeningError(f"--cores must be at least 1, got {args.cores}")
     out = (args.out or Path("results") / rules.name).resolve()
+    from screening import provenance
+
+    provenance.prepare_run(rules, out, args)
     if not SNAKEFILE.is_file():
         raise ScreeningError(f"workflow file not found at {SNAKEFILE} (install the package from a checkout "
                              "with `pip install -e .`)")
     command = [sys.executable, "-m", "snakemake", "--snakefile", str(SNAKEFILE), "--cores", str(args.cores),
                "--directory", str(out), "--config", f"ruleset={rules.path}", f"out={out}",
-               "--rerun-incomplete", "--quiet", "rules"]
+               "--rerun-incomplete", "--quiet", "rules",
+               # stages run in threads of one process: no interpreter start-up per job
+               "--force-use-threads"]
     if args.dry_run:
         command.append("--dry-run")
     command += shlex.split(args.snakemake_args)
     out.mkdir(parents=True, exist_ok=True)
-    completed = subprocess.run(command)
-    if completed.returncode != 0:
-        print(f"screening: the workflow failed (exit {completed.returncode}); see {out}/logs", file=sys.stderr)
+    from screening import progress
+
+    # Snakemake's output is held back (and printed whole on failure); a long run shows a status line.
+    returncode = progress.run_workflow(command, out, after_s=progress.delay_from_env(), echo=args.dry_run)
+    if returncode != 0:
+        print(f"screening: the workflow failed (exit {returncode}); see {out}/logs", file=sys.stderr)
         return 1
     if not args.dry_run:
         print(f"screening: shortlist written to {out / 'shortlist.csv'}")

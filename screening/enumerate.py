@@ -13,6 +13,9 @@ The work is split in two so that no pair is ever built from an ion that a
 single-ion rule already removed:
 
 * :func:`placements` -- every pool ion on every cation site (vectorised cross join);
+  :func:`anion_placements` -- the rule set's anion dopants (N3-, F-, S2-, Cl-) on the
+  oxide-ion site, in the same frame layout, so that N_O′ pairs with a donor such
+  as Nb_Ti• (1:1) and F_O• with an acceptor such as Cr_Ti′ like any other ions;
 * :func:`combine` -- singles and acceptor × donor pairs from the placements that
   survived the single-ion rules, joined per host on the sign of the effective
   charge.  Charges and ratios are integers; amounts per formula unit are exact
@@ -26,6 +29,7 @@ import numpy as np
 import pandas as pd
 
 from screening import ions
+from screening.errors import ScreeningError
 from screening.formulas import format_formula
 from screening.hosts import Host
 
@@ -47,10 +51,68 @@ def placements(sites: pd.DataFrame, pool: pd.DataFrame) -> pd.DataFrame:
     crossed["radius_a"] = radii["radius_a"].to_numpy()
     crossed["radius_estimated"] = radii["radius_estimated"].to_numpy()
     crossed["spin"] = radii["spin"].to_numpy()
+    return _finish_placements(crossed)
+
+
+def _finish_placements(crossed: pd.DataFrame) -> pd.DataFrame:
     crossed["delta"] = (crossed["charge"] - crossed["site_charge"]).astype(np.int64)
     crossed["mismatch"] = (crossed["radius_a"] - crossed["site_radius_a"]).abs() / crossed["site_radius_a"]
     crossed["ion"] = _ion_labels(crossed["element"], crossed["charge"])
     return crossed.sort_values(PLACEMENT_KEY).reset_index(drop=True)
+
+
+ANION_DOPANT_CHARGE = {"N": -3, "F": -1, "S": -2, "Cl": -1}
+"""The anion each anion-dopant element forms on an oxide-ion site (nitride, fluoride, sulfide, chloride)."""
+
+
+def anion_sites_frame(hosts: list[Host]) -> pd.DataFrame:
+    """The oxide-ion site of every host, in the layout of :func:`screening.hosts.sites_frame`."""
+    return pd.DataFrame([
+        {"host": h.id, "site": h.anion.label, "site_element": h.anion.element,
+         "site_charge": h.anion.oxidation_state, "coordination": h.anion.coordination,
+         "multiplicity": h.anion.multiplicity, "site_radius_a": h.anion.radius_a, "host_gap_ev": h.gap_ev}
+        for h in hosts])
+
+
+def anion_placements(hosts: list[Host], elements) -> pd.DataFrame:
+    """The anion dopants ``elements`` (keys of :data:`ANION_DOPANT_CHARGE`) on each host's oxide-ion site.
+
+    Radii are Shannon's at the anion site's coordination.  Shannon tabulates N3-
+    (IV) and S2- (VI) at one coordination only, so the straight-line estimate of
+    :func:`screening.ions.lookup_radii` has nothing to fit; there the radius is
+    scaled by the host anion's own coordination trend,
+    r(CN) = r_tab(CN_tab) x r_O(CN) / r_O(CN_tab), and marked estimated.  An ion with
+    no tabulated radius at all keeps NaN (the radius rule rejects it).
+    """
+    elements = list(dict.fromkeys(elements))
+    unknown = [e for e in elements if e not in ANION_DOPANT_CHARGE]
+    if unknown:
+        raise ScreeningError(f"anion dopant(s) {', '.join(map(str, unknown))} not supported; allowed: "
+                             + ", ".join(ANION_DOPANT_CHARGE), field="enumeration.anion_dopants")
+    charges = [ANION_DOPANT_CHARGE[e] for e in elements]
+    states = ions.load_ion_data().states.set_index(["element", "charge"])["common"]
+    common = [bool(states.get((e, q), False)) for e, q in zip(elements, charges)]
+    pool = pd.DataFrame({"element": elements, "charge": charges, "common": common})
+    crossed = placements(anion_sites_frame(hosts), pool).drop(columns=["delta", "mismatch", "ion"])
+
+    table = ions.load_ion_data().radii
+    plain = table[table["geometry"] == ""]
+    tabulated = plain.groupby(["element", "charge"])["coordination"].agg(["nunique", "first"])
+    key = pd.MultiIndex.from_frame(crossed[["element", "charge"]])
+    n_tab = tabulated["nunique"].reindex(key).to_numpy()
+    cn_tab = tabulated["first"].reindex(key).to_numpy()
+    scale = crossed["radius_a"].isna().to_numpy() & (n_tab == 1)
+    if scale.any():
+        rows = crossed[scale]
+        r_tab = ions.lookup_radii(pd.DataFrame({"element": rows["element"].to_numpy(),
+                                                "charge": rows["charge"].to_numpy(),
+                                                "coordination": cn_tab[scale].astype(int)}))["radius_a"].to_numpy()
+        host_ion = {"element": rows["site_element"].to_numpy(), "charge": rows["site_charge"].to_numpy()}
+        r_o_site = ions.lookup_radii(pd.DataFrame({**host_ion, "coordination": rows["coordination"].to_numpy()}))
+        r_o_tab = ions.lookup_radii(pd.DataFrame({**host_ion, "coordination": cn_tab[scale].astype(int)}))
+        crossed.loc[scale, "radius_a"] = r_tab * r_o_site["radius_a"].to_numpy() / r_o_tab["radius_a"].to_numpy()
+        crossed.loc[scale, "radius_estimated"] = True
+    return _finish_placements(crossed)
 
 
 def _ion_labels(elements: pd.Series, charges: pd.Series) -> pd.Series:
@@ -208,7 +270,8 @@ def candidate_amounts(candidates: pd.DataFrame, hosts: dict[str, Host]) -> pd.Da
         host_row[host_id] = i
         for element, amount in host.composition().items():
             host_matrix[i, column[element]] = float(amount)
-    rows = candidates["host"].map(host_row).to_numpy()
+    # integer indices even for an empty frame (a rule may have removed every candidate)
+    rows = candidates["host"].map(host_row).to_numpy(np.int64)
     matrix[:] = host_matrix[rows]
     index = np.arange(len(candidates))
     den = candidates["amount_den"].to_numpy(float)
@@ -216,13 +279,13 @@ def candidate_amounts(candidates: pd.DataFrame, hosts: dict[str, Host]) -> pd.Da
     codopant = candidates["codopant_num"].to_numpy(float) / den
     vacancy = candidates["vacancy_num"].to_numpy(float) / den
     # np.add.at accumulates where a dopant replaces its own element's other site
-    np.add.at(matrix, (index, candidates["dopant_site_element"].map(column).to_numpy()), -dopant)
-    np.add.at(matrix, (index, candidates["dopant_element"].map(column).to_numpy()), dopant)
+    np.add.at(matrix, (index, candidates["dopant_site_element"].map(column).to_numpy(np.int64)), -dopant)
+    np.add.at(matrix, (index, candidates["dopant_element"].map(column).to_numpy(np.int64)), dopant)
     pair = candidates["kind"].eq("pair").to_numpy()
     if pair.any():
-        np.add.at(matrix, (index[pair], candidates.loc[pair, "codopant_site_element"].map(column).to_numpy()),
+        np.add.at(matrix, (index[pair], candidates.loc[pair, "codopant_site_element"].map(column).to_numpy(np.int64)),
                   -codopant[pair])
-        np.add.at(matrix, (index[pair], candidates.loc[pair, "codopant_element"].map(column).to_numpy()),
+        np.add.at(matrix, (index[pair], candidates.loc[pair, "codopant_element"].map(column).to_numpy(np.int64)),
                   codopant[pair])
     if "O" in column:
         matrix[:, column["O"]] -= vacancy
@@ -257,8 +320,13 @@ def _composition(row: pd.Series, host: Host) -> tuple[dict[str, Fraction], list[
         _add(amounts, order, site.element, Fraction(site.multiplicity) - removed)
         for element, amount in substitutions.get(site.label, []):
             _add(amounts, order, element, amount)
+    # anion-site dopants (N_O, F_O ...) replace oxide ions: written after O, as in SrTiO2.94N0.06
+    on_anion = substitutions.get(host.anion.label, [])
     _add(amounts, order, host.anion.element,
-         Fraction(host.anion.multiplicity) - Fraction(int(row["vacancy_num"]), den))
+         Fraction(host.anion.multiplicity) - Fraction(int(row["vacancy_num"]), den)
+         - sum((a for _, a in on_anion), Fraction(0)))
+    for element, amount in on_anion:
+        _add(amounts, order, element, amount)
     return amounts, order
 
 

@@ -14,8 +14,15 @@ from fractions import Fraction
 
 from screening.errors import ScreeningError
 
-_TOKEN = re.compile(r"([A-Z][a-z]?)|(\()|(\))|(\d+(?:\.\d+)?|\.\d+)")
+# [0-9], not \d: \d also matches Arabic-Indic and other Unicode digits, which Fraction would
+# then read as numbers ("Ti٣O2" came out as Ti3O2).
+_TOKEN = re.compile(r"([A-Z][a-z]?)|(\()|(\))|([0-9]+(?:\.[0-9]+)?|\.[0-9]+)")
 _SUBSCRIPT_DIGITS = "₀₁₂₃₄₅₆₇₈₉"
+MAX_LENGTH = 200
+"""Longest formula accepted, in characters (doped formula units of oxides are a few dozen)."""
+MAX_AMOUNT = 1000
+"""Largest amount of one element per formula unit; larger ones are typing errors, and huge ones
+would overflow the floats that the band-edge and cost stages compute with."""
 
 
 def _known_symbols() -> frozenset[str]:
@@ -26,9 +33,14 @@ def _known_symbols() -> frozenset[str]:
 
 def parse_formula(text: str, *, source: str = "formula") -> dict[str, Fraction]:
     """Element -> amount (exact) of a formula; raises ScreeningError on anything malformed."""
-    if not isinstance(text, str) or not text.strip():
+    if not isinstance(text, str):
+        raise ScreeningError(f"a formula must be text, got {type(text).__name__} {text!r}", source=source)
+    if not text.strip():
         raise ScreeningError("empty formula", source=source)
     formula = text.strip()
+    if len(formula) > MAX_LENGTH:
+        raise ScreeningError(f"formula of {len(formula)} characters; at most {MAX_LENGTH} are accepted",
+                             source=source)
     if any(ch in _SUBSCRIPT_DIGITS for ch in formula):
         raise ScreeningError(f"{formula!r} uses Unicode subscript digits; write plain digits, e.g. TiO2",
                              source=source)
@@ -39,8 +51,13 @@ def parse_formula(text: str, *, source: str = "formula") -> dict[str, Fraction]:
     while position < len(formula):
         match = _TOKEN.match(formula, position)
         if not match:
-            raise ScreeningError(f"cannot read {formula!r} at character {position + 1} ({formula[position]!r})",
-                                 source=source)
+            char = formula[position]
+            if char in "+-":
+                raise ScreeningError(f"sign {char!r} at character {position + 1} of {formula!r}: amounts must be "
+                                     "positive plain numbers and charges are not written in formulas",
+                                     source=source)
+            raise ScreeningError(f"cannot read {formula!r} at character {position + 1} ({char!r}); a formula "
+                                 "holds element symbols, plain ASCII amounts and parentheses", source=source)
         element, opening, closing, number = match.groups()
         if element:
             if element not in symbols:
@@ -63,6 +80,9 @@ def parse_formula(text: str, *, source: str = "formula") -> dict[str, Fraction]:
             amount = Fraction(number)
             if amount <= 0:
                 raise ScreeningError(f"zero amount in {formula!r}", source=source)
+            if amount > MAX_AMOUNT:
+                raise ScreeningError(f"amount {number} in {formula!r} is above {MAX_AMOUNT} per formula unit",
+                                     source=source)
             if last is None:
                 raise ScreeningError(f"amount {number!r} without an element in {formula!r}", source=source)
             if isinstance(last, str):
@@ -76,6 +96,11 @@ def parse_formula(text: str, *, source: str = "formula") -> dict[str, Fraction]:
         raise ScreeningError(f"unbalanced '(' in {formula!r}", source=source)
     if not stack[0]:
         raise ScreeningError(f"no element in {formula!r}", source=source)
+    # nested groups multiply: (O999)999 passes the per-amount check but not this one
+    too_large = sorted(k for k, v in stack[0].items() if v > MAX_AMOUNT)
+    if too_large:
+        raise ScreeningError(f"{', '.join(too_large)} comes to more than {MAX_AMOUNT} per formula unit in "
+                             f"{formula!r}", source=source)
     return stack[0]
 
 

@@ -17,6 +17,7 @@ import contextlib
 import json
 import logging
 import os
+import threading
 import time
 from fractions import Fraction
 from pathlib import Path
@@ -41,6 +42,9 @@ def stage_log(path, stage: str):
     path.parent.mkdir(parents=True, exist_ok=True)
     handler = logging.FileHandler(path, mode="w", encoding="utf-8")
     handler.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(message)s"))
+    # Local runs execute stages in threads of one process: keep each log to its own stage.
+    thread = threading.get_ident()
+    handler.addFilter(lambda record: record.thread == thread)
     logger = logging.getLogger("screening")
     logger.addHandler(handler)
     logger.setLevel(logging.INFO)
@@ -84,14 +88,22 @@ def shard_count(n_hosts: int, shard_size: int) -> int:
     return max(1, -(-n_hosts // shard_size))
 
 
-def prepare_hosts(hosts_file, shard_size: int, out_json) -> list[hostlib.Host]:
-    hosts = hostlib.load_hosts(hosts_file)
+def prepare_hosts(hosts_file, shard_size: int, out_json, structures=None) -> list[hostlib.Host]:
+    """Checked hosts in shards; ``structures``: the rule set's CIF file or folder (issue 4), or None."""
+    from screening import structures as structlib
+
+    hosts, skipped = structlib.combined_hosts(hosts_file, structures)
     records = hostlib.hosts_to_records(hosts)
     n = shard_count(len(hosts), shard_size)
     for i, record in enumerate(records):
         record["shard"] = i // shard_size
-    write_json({"hosts_file": str(hosts_file), "library_sha256": hostlib.library_hash(hosts_file),
-                "shards": n, "hosts": records}, out_json)
+    document = {"hosts_file": str(hosts_file), "library_sha256": hostlib.library_hash(hosts_file),
+                "shards": n, "hosts": records}
+    if structures is not None:
+        # skipped structures reach the funnel through shard 0 (see screen_shard)
+        document.update({"structures": str(structures), "structures_sha256": structlib.structures_hash(structures),
+                         "skipped_structures": skipped})
+    write_json(document, out_json)
     return hosts
 
 
@@ -129,6 +141,11 @@ def screen_shard(hosts_json, shard: int, pool_file, enumeration: dict, filters: 
     host_ids = sorted(hosts)
     pool = pools.pool_ions(pools.load_pool(pool_file))
     placed = enum.placements(hostlib.sites_frame(list(hosts.values())), pool)
+    if enumeration.get("anion_dopants"):
+        # issue 4: N3-, F-, S2- on the oxide-ion site, screened by the same single-ion rules
+        anion = enum.anion_placements(list(hosts.values()), enumeration["anion_dopants"])
+        placed = (pd.concat([placed, anion], ignore_index=True)
+                  .sort_values(enum.PLACEMENT_KEY).reset_index(drop=True))
 
     funnel, rejected = [], []
     count = _implied_count(placed, host_ids, enumeration)
@@ -154,6 +171,16 @@ def screen_shard(hosts_json, shard: int, pool_file, enumeration: dict, filters: 
     funnel.append(_funnel_rows("charge_balance", count, after))
     count = after.reindex(host_ids, fill_value=0)
 
+    if filters.get("lattice") is not None:
+        # Goldschmidt t and Bartel tau of the doped ABO3 compositions (issue 4)
+        from screening.filters import tolerance
+
+        candidates, removed = tolerance.apply(candidates, hosts, filters["lattice"])
+        rejected.append(removed)
+        after = candidates.groupby("host").size()
+        funnel.append(_funnel_rows("tolerance", count, after))
+        count = after.reindex(host_ids, fill_value=0)
+
     amounts = enum.candidate_amounts(candidates, hosts)
     candidates, removed, metrics = scarcity_rules.apply_composition(candidates, amounts, scarcity)
     if removed is not None:
@@ -169,10 +196,18 @@ def screen_shard(hosts_json, shard: int, pool_file, enumeration: dict, filters: 
     log.info("shard %d: %d hosts, %d candidates enumerated, %d kept", shard, len(hosts),
              int(enumerated.sum()), len(kept))
     write_parquet(kept, kept_out)
+    skipped = json.loads(Path(hosts_json).read_text()).get("skipped_structures", []) if shard == 0 else []
+    if skipped:
+        from screening import structures as structlib
+
+        skipped_funnel, skipped_rejected = structlib.skipped_rows(skipped)
+        rejected.append(skipped_rejected)
     frames = [r for r in rejected if r is not None and len(r)]
     write_parquet(pd.concat(frames, ignore_index=True) if frames else empty_rejected(), rejected_out)
     funnel_frame = pd.concat(funnel, ignore_index=True)
     funnel_frame.insert(2, "enumerated", funnel_frame["host"].map(enumerated))
+    if skipped:
+        funnel_frame = pd.concat([skipped_funnel, funnel_frame], ignore_index=True)
     write_csv(funnel_frame, funnel_out)
     return kept
 
@@ -180,18 +215,41 @@ def screen_shard(hosts_json, shard: int, pool_file, enumeration: dict, filters: 
 # --- stage 3: band edges -----------------------------------------------------------------
 
 def edge_shard(hosts_json, shard: int, kept_file, edges_out) -> pd.DataFrame:
+    """Raw and calibrated band edges (pH 0) with their sigma, dopant-level onset, STH limit, in-gap risk.
+
+    Takes no rule-set section: everything here is a property of the composition (the rule set's pH,
+    margins and the raw/calibrated switch act in :func:`rank`).
+    """
+    from screening import calibration as calib, dopant_levels, ingap
+
     hosts = read_hosts(hosts_json, shard)
     kept = pd.read_parquet(kept_file)
     amounts = enum.candidate_amounts(kept, hosts) if len(kept) else pd.DataFrame()
     gap = kept["host"].map({h: host.gap_ev for h, host in hosts.items()}).to_numpy(float)
     chi = bands.electronegativity_of_amounts(amounts) if len(kept) else np.array([])
     cbm, vbm = bands.band_edges(chi, gap, ph=0.0)
-    # First depth: the absorption onset is the host gap; dopant-induced levels come later.
-    onset = gap
+    cbm, vbm = np.atleast_1d(cbm), np.atleast_1d(vbm)
+    cal = calib.load_calibration()
+    if len(kept):
+        cbm_cal, vbm_cal, cbm_sigma, vbm_sigma = calib.calibrated_edges(cbm, vbm, gap, ph=0.0, calibration=cal)
+    else:
+        cbm_cal = vbm_cal = cbm_sigma = vbm_sigma = np.array([])
+    # the uncalibrated estimate's own error, for rule sets that switch the calibration off
+    raw_sigma = float(np.sqrt(np.mean((np.array(cal.raw_cbm_v) - np.array(cal.measured_cbm_v)) ** 2)))
+    host_formula = kept["host"].map({h: host.formula for h, host in hosts.items()})
+    levels = dopant_levels.candidate_onsets(kept, host_formula, gap, cal)
+    risk = ingap.candidate_risk(kept, hosts)
+    onset = levels["onset_ev"].to_numpy(float)
     edges = pd.DataFrame({
         "candidate_id": kept["candidate_id"].to_numpy(), "chi_ev": chi,
-        "cbm_v_nhe_ph0": np.atleast_1d(cbm), "vbm_v_nhe_ph0": np.atleast_1d(vbm),
+        "cbm_v_nhe_ph0": cbm, "vbm_v_nhe_ph0": vbm,
+        "cbm_cal_v_nhe_ph0": np.atleast_1d(cbm_cal), "vbm_cal_v_nhe_ph0": np.atleast_1d(vbm_cal),
+        "cbm_sigma_cal_v": np.atleast_1d(cbm_sigma), "vbm_sigma_cal_v": np.atleast_1d(vbm_sigma),
+        "sigma_raw_v": np.full(len(kept), raw_sigma),
         "host_gap_ev": gap, "onset_ev": onset,
+        "level_flag": levels["level_flag"].to_numpy(str), "level_note": levels["level_note"].to_numpy(str),
+        "level_same_host": levels["level_same_host"].to_numpy(bool),
+        "ingap_risk": risk["ingap_risk"].to_numpy(str), "ingap_reason": risk["ingap_reason"].to_numpy(str),
         "sth_limit": solar.sth_limit(onset) if len(kept) else np.array([]),
     })
     write_parquet(edges, edges_out)
@@ -209,15 +267,19 @@ ABUNDANCE_DECADES = 6.0
 
 def score_terms(frame: pd.DataFrame, strain_limit: float) -> pd.DataFrame:
     """Dimensionless terms of the score (larger is better), on fixed scales so reruns compare."""
+    from screening import ingap
+
     strain = np.fmax(frame["dopant_mismatch"].to_numpy(float),
                      np.nan_to_num(frame["codopant_mismatch"].to_numpy(float), nan=0.0))
     return pd.DataFrame({
-        "term_sth": frame["sth_limit"].to_numpy(float) / STH_REFERENCE,
+        # expected STH: the limit of the onset times the probability that the edges reach water splitting
+        "term_sth": frame["expected_sth"].to_numpy(float) / STH_REFERENCE,
         "term_alignment": np.clip(frame["alignment_margin_v"].to_numpy(float) / MARGIN_SCALE_V, -1, 1),
         "term_cost": -np.log10(np.fmax(frame["cost_usd_per_kg"].to_numpy(float), 1e-2)) / COST_DECADES,
         "term_abundance": np.log10(np.fmax(frame["scarcest_abundance_ppm"].to_numpy(float), 1e-6))
         / ABUNDANCE_DECADES,
         "term_strain": -strain / strain_limit if strain_limit > 0 else -strain,
+        "term_ingap": ingap.risk_penalty(frame["ingap_risk"].to_numpy(str)),
     }, index=frame.index)
 
 
@@ -231,14 +293,29 @@ def rank(hosts_json, kept_files, edge_files, alignment: dict, ranking: dict, str
         raise AssertionError("band-edge stage lost candidates")
     ph = float(alignment["ph"])
     shift = -bands.NERNST_SLOPE_V * ph
+    # cbm_v_nhe / vbm_v_nhe stay the raw Butler–Ginley edges (as in earlier shortlists); the alignment
+    # uses the calibrated ones unless the rule set switches the calibration off
     frame["cbm_v_nhe"] = frame["cbm_v_nhe_ph0"] + shift
     frame["vbm_v_nhe"] = frame["vbm_v_nhe_ph0"] + shift
-    her, oer = bands.alignment_margins(frame["cbm_v_nhe"], frame["vbm_v_nhe"], ph,
+    frame["cbm_calibrated_v_nhe"] = frame["cbm_cal_v_nhe_ph0"] + shift
+    frame["vbm_calibrated_v_nhe"] = frame["vbm_cal_v_nhe_ph0"] + shift
+    calibrated = bool(alignment["calibrated_edges"])
+    cbm_used = frame["cbm_calibrated_v_nhe" if calibrated else "cbm_v_nhe"].to_numpy(float)
+    sigma = frame["cbm_sigma_cal_v" if calibrated else "sigma_raw_v"].to_numpy(float)
+    frame["cbm_sigma_v"] = sigma
+    frame["vbm_sigma_v"] = frame["vbm_sigma_cal_v"].to_numpy(float) if calibrated else sigma
+    # highest occupied level: the dopant level onset_ev below the CBM, or the VBM where onset = gap
+    frame["occupied_level_v_nhe"] = cbm_used + frame["onset_ev"].to_numpy(float)
+    her, oer = bands.alignment_margins(cbm_used, frame["occupied_level_v_nhe"], ph,
                                        alignment["her_overpotential_v"], alignment["oer_overpotential_v"])
     frame["her_margin_v"], frame["oer_margin_v"] = her, oer
     mode = alignment["mode"]
     margin = {"overall": np.minimum(her, oer), "hydrogen": her, "oxygen": oer}[mode]
     frame["alignment_margin_v"] = margin
+    # a level transferred from other hosts carries their edge error, independent of this host's
+    shared = frame["level_flag"].to_numpy(str) != "transferred"
+    frame["alignment_probability"] = bands.alignment_probability(her, oer, sigma, sigma, shared, mode)
+    frame["expected_sth"] = frame["sth_limit"].to_numpy(float) * frame["alignment_probability"].to_numpy(float)
 
     from screening.filters import alignment as alignment_rule
 
@@ -248,6 +325,13 @@ def rank(hosts_json, kept_files, edge_files, alignment: dict, ranking: dict, str
     after = frame.groupby("host").size().reindex(host_ids, fill_value=0)
     write_csv(_funnel_rows("alignment", before, after), funnel_out)
     write_parquet(removed, rejected_out)
+
+    # issue 4: which site each ion prefers (Hautier 2011 substitution probability x radius match)
+    from screening import site_preference
+
+    preference = site_preference.candidate_likelihoods(frame, hosts, max(float(strain_limit), 1e-3))
+    frame["site_likelihood"] = preference["site_likelihood"].to_numpy(float)
+    frame["preferred_site"] = preference["preferred_site"].to_numpy(bool)
 
     weights = ranking["weights"]
     terms = score_terms(frame, strain_limit)
@@ -268,37 +352,23 @@ def rank(hosts_json, kept_files, edge_files, alignment: dict, ranking: dict, str
 SHORTLIST_COLUMNS = [
     "rank", "candidate_id", "host", "dopant", "dopant_site", "codopant", "codopant_site", "ratio",
     "compensation", "defects", "formula", "dopant_fraction", "codopant_fraction", "dopant_mismatch",
-    "codopant_mismatch", "radius_estimated", "chi_ev", "cbm_v_nhe", "vbm_v_nhe", "her_margin_v", "oer_margin_v",
-    "onset_ev", "sth_limit", "cost_usd_per_kg", "hhi_production", "scarcest_element", "critical_elements",
+    "codopant_mismatch", "radius_estimated", "site_likelihood", "preferred_site", "chi_ev", "cbm_v_nhe",
+    "vbm_v_nhe", "cbm_calibrated_v_nhe",
+    "vbm_calibrated_v_nhe", "cbm_sigma_v", "vbm_sigma_v", "occupied_level_v_nhe", "her_margin_v", "oer_margin_v",
+    "alignment_probability", "onset_ev", "level_flag", "level_note", "sth_limit", "expected_sth", "ingap_risk",
+    "ingap_reason", "cost_usd_per_kg", "hhi_production", "scarcest_element", "critical_elements",
     "score",
 ]
 
 
 def assemble(ranked_file, rejected_files, funnel_files, shortlist_out, rejected_out, funnel_out) -> None:
-    ranked = pd.read_parquet(ranked_file)
-    shortlist = pd.DataFrame({
-        "rank": ranked["rank"], "candidate_id": ranked["candidate_id"], "host": ranked["host"],
-        "dopant": ranked["dopant_ion"], "dopant_site": ranked["dopant_site"],
-        "codopant": ranked["codopant_ion"], "codopant_site": ranked["codopant_site"],
-        "ratio": ranked["ratio"], "compensation": ranked["compensation"], "defects": ranked["defects"],
-        "formula": ranked["formula"], "dopant_fraction": ranked["dopant_fraction"],
-        "codopant_fraction": ranked["codopant_fraction"], "dopant_mismatch": ranked["dopant_mismatch"],
-        "codopant_mismatch": ranked["codopant_mismatch"],
-        "radius_estimated": ranked["dopant_radius_estimated"] | ranked["codopant_radius_estimated"],
-        "chi_ev": ranked["chi_ev"], "cbm_v_nhe": ranked["cbm_v_nhe"], "vbm_v_nhe": ranked["vbm_v_nhe"],
-        "her_margin_v": ranked["her_margin_v"], "oer_margin_v": ranked["oer_margin_v"],
-        "onset_ev": ranked["onset_ev"], "sth_limit": ranked["sth_limit"],
-        "cost_usd_per_kg": ranked["cost_usd_per_kg"], "hhi_production": ranked["hhi_production"],
-        "scarcest_element": ranked["scarcest_element"], "critical_elements": ranked["critical_elements"],
-        "score": ranked["score"],
-    })[SHORTLIST_COLUMNS]
-    write_csv(shortlist, shortlist_out)
-    frames = [pd.read_parquet(f) for f in rejected_files]
-    frames = [f for f in frames if len(f)]
-    rejected = pd.concat(frames, ignore_index=True) if frames else empty_rejected()
-    rejected = rejected.sort_values(["host", "rule", "dopant", "dopant_site", "codopant", "codopant_site"],
-                                    kind="stable").reset_index(drop=True)
-    write_parquet(rejected, rejected_out)
+    ranked = pd.read_parquet(ranked_file).rename(columns={"dopant_ion": "dopant", "codopant_ion": "codopant"})
+    ranked["radius_estimated"] = ranked["dopant_radius_estimated"] | ranked["codopant_radius_estimated"]
+    missing = [c for c in SHORTLIST_COLUMNS if c not in ranked.columns]
+    if missing:
+        raise AssertionError(f"ranked candidates lack the shortlist column(s) {missing}")
+    write_csv(ranked[SHORTLIST_COLUMNS], shortlist_out)
+    _stream_rejected(rejected_files, rejected_out)
     funnel = pd.concat([pd.read_csv(f, keep_default_na=False) for f in funnel_files], ignore_index=True)
     order = {rule: i for i, rule in enumerate(FUNNEL_ORDER)}
     funnel = funnel.assign(_order=funnel["rule"].map(order)).sort_values(["host", "_order"], kind="stable")
@@ -307,5 +377,39 @@ def assemble(ranked_file, rejected_files, funnel_files, shortlist_out, rejected_
     write_csv(funnel.drop(columns="_order"), funnel_out)
 
 
-FUNNEL_ORDER = ["oxidation_state", "radius_mismatch", "radioactive", "abundance", "charge_balance", "cost",
+def _rejected_schema():
+    import pyarrow as pa
+
+    text = ["host", "dopant", "dopant_site", "codopant", "codopant_site", "rule", "scope", "detail", "candidate_id"]
+    fields = [pa.field(c, pa.string()) for c in text[:6]] + [pa.field("value", pa.float64()),
+                                                              pa.field("threshold", pa.float64())]
+    return pa.schema(fields + [pa.field(c, pa.string()) for c in text[6:]])
+
+
+def _stream_rejected(rejected_files, rejected_out) -> None:
+    """Concatenate the stage rejection files one at a time, so memory stays that of the largest shard."""
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    schema = _rejected_schema()
+    sort_keys = ["host", "rule", "dopant", "dopant_site", "codopant", "codopant_site"]
+
+    def write(tmp):
+        with pq.ParquetWriter(tmp, schema) as writer:
+            for path in rejected_files:
+                frame = pd.read_parquet(path)
+                if not len(frame):
+                    continue
+                frame = frame.reindex(columns=schema.names)
+                for name in schema.names:
+                    if name not in ("value", "threshold"):
+                        frame[name] = frame[name].astype(object).where(frame[name].notna(), None)
+                frame = frame.sort_values(sort_keys, kind="stable")
+                writer.write_table(pa.Table.from_pandas(frame, schema=schema, preserve_index=False))
+
+    _atomic(rejected_out, write)
+
+
+FUNNEL_ORDER = ["structure", "oxidation_state", "radius_mismatch", "radioactive", "abundance", "charge_balance",
+                "tolerance", "cost",
                 "hhi_production", "hhi_reserves", "alignment"]

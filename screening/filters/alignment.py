@@ -1,33 +1,54 @@
-"""Band-edge alignment with the water redox levels plus overpotential margins.
+"""Band-edge alignment with the water redox levels plus overpotential margins, as a probability.
 
 Overall water splitting on one absorber needs the CBM above H+/H2 by the
-hydrogen-evolution overpotential and the VBM below O2/H2O by the
-oxygen-evolution overpotential (defaults 0.1 V and 0.4 V: typical
-overpotentials on good catalysts, common practice).  In a two-absorber
-(Z-scheme) system a hydrogen- or oxygen-evolving photocatalyst needs only its
-own half-reaction; the rule set's ``mode`` says which.
+hydrogen-evolution overpotential and the highest occupied level (the VBM, or
+an occupied dopant level in the gap) below O2/H2O by the oxygen-evolution
+overpotential (defaults 0.1 V and 0.4 V: typical overpotentials on good
+catalysts, common practice).  In a two-absorber (Z-scheme) system a hydrogen-
+or oxygen-evolving photocatalyst needs only its own half-reaction; the rule
+set's ``mode`` says which.
+
+The edges carry Gaussian errors (sigma from the leave-one-out residuals of the
+calibration, :mod:`screening.calibration`); the probability that the true
+edges meet the conditions is :func:`screening.bands.alignment_probability`.
+A candidate is rejected when that probability is below ``min_probability``.
+The default 0.5 is the old margin rule for one half-reaction (P >= 0.5 exactly
+when the estimated margin is >= 0); for overall splitting it is stricter,
+because the two conditions must hold together.
 """
 from __future__ import annotations
 
 import numpy as np
 import pandas as pd
 
+from screening.errors import ScreeningError
 from screening.filters import rejected_candidates
 
 RULE = "alignment"
+MODES = ("overall", "hydrogen", "oxygen")
 
 
 def apply(frame: pd.DataFrame, alignment: dict) -> tuple[pd.DataFrame, pd.DataFrame]:
-    margin = frame["alignment_margin_v"].to_numpy(float)
-    bad = margin < 0 if alignment["required"] else np.zeros(len(frame), dtype=bool)
+    mode = alignment["mode"]
+    if mode not in MODES:
+        raise ScreeningError(f"{mode!r} is not one of {', '.join(MODES)}", field="alignment.mode")
+    threshold = float(alignment["min_probability"])
+    if not 0.0 <= threshold <= 1.0:
+        raise ScreeningError(f"{threshold!r} is outside 0-1", field="alignment.min_probability")
+    probability = frame["alignment_probability"].to_numpy(float)
+    bad = probability < threshold if alignment["required"] else np.zeros(len(frame), dtype=bool)
     her = frame["her_margin_v"].to_numpy(float)
-    which = np.where(her <= frame["oer_margin_v"].to_numpy(float), "CBM misses H+/H2 + ", "VBM misses O2/H2O + ")
-    if alignment["mode"] == "hydrogen":
-        which[:] = "CBM misses H+/H2 + "
-    elif alignment["mode"] == "oxygen":
-        which[:] = "VBM misses O2/H2O + "
-    detail = (pd.Series(which, index=frame.index)
-              + np.where(np.char.startswith(which.astype(str), "CBM"),
-                         f"{alignment['her_overpotential_v']:g} V", f"{alignment['oer_overpotential_v']:g} V")
-              + " by " + pd.Series(-margin, index=frame.index).map(lambda v: f"{v:.3f}") + " V")
-    return frame[~bad], rejected_candidates(frame, bad, RULE, margin, 0.0, detail)
+    oer = frame["oer_margin_v"].to_numpy(float)
+    # name the condition that fails (or the weaker one): the smaller margin in sigma units
+    cbm_worse = {"overall": her <= oer, "hydrogen": np.ones(len(frame), bool),
+                 "oxygen": np.zeros(len(frame), bool)}[mode]
+    her_text = (f"CBM margin above H+/H2 + {alignment['her_overpotential_v']:g} V "
+                + pd.Series(her, index=frame.index).map(lambda v: f"{v:+.3f}") + " V")
+    oer_text = (f"occupied-level margin below O2/H2O + {alignment['oer_overpotential_v']:g} V "
+                + pd.Series(oer, index=frame.index).map(lambda v: f"{v:+.3f}") + " V")
+    sigma = pd.Series(frame["cbm_sigma_v"].to_numpy(float), index=frame.index).map(lambda v: f"{v:.2f}")
+    detail = ("P(aligned) " + pd.Series(probability, index=frame.index).map(lambda v: f"{v:.3f}")
+              + f" < {threshold:g} ({mode}): "
+              + pd.Series(np.where(cbm_worse, her_text, oer_text), index=frame.index)
+              + " (sigma " + sigma + " V)")
+    return frame[~bad], rejected_candidates(frame, bad, RULE, probability, threshold, detail)

@@ -20,7 +20,9 @@ COMPOSITION_RULES = {"cost": "max_cost_usd_per_kg", "hhi_production": "max_hhi_p
 
 def apply_radioactive(placements: pd.DataFrame, thresholds: dict) -> tuple[pd.DataFrame, pd.DataFrame]:
     """Radioactive elements out (if the rule set says so); one rejection per ion on site."""
-    radioactive = placements["element"].map(ions.load_ion_data().elements["radioactive"]).astype(bool).to_numpy()
+    # copy=True: under pandas copy-on-write to_numpy() may return a read-only view, and the
+    # assignment below then raised "assignment destination is read-only" (found by tests/test_invariants.py)
+    radioactive = placements["element"].map(ions.load_ion_data().elements["radioactive"]).astype(bool).to_numpy(copy=True)
     if not thresholds["exclude_radioactive"]:
         radioactive[:] = False
     detail = placements["element"] + " is radioactive (mendeleev)"
