@@ -162,6 +162,10 @@ def main(argv: list[str] | None = None) -> int:
     except ScreeningError as exc:
         print(f"screening: error: {exc}", file=sys.stderr)
         return 2
+    except KeyboardInterrupt:
+        # Snakemake has already marked unfinished outputs incomplete; a rerun resumes.
+        print("screening: interrupted; run the same command again to resume", file=sys.stderr)
+        return 130
 
 
 if __name__ == "__main__":

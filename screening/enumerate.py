@@ -156,10 +156,27 @@ def combine(kept: pd.DataFrame, enumeration: dict, dopant_fraction: Fraction) ->
         frames.append(_singles(kept, enumeration))
     if enumeration["pairs"]:
         frames.append(_pairs(kept))
-    if not frames:
-        return _empty_candidates()
-    candidates = pd.concat(frames, ignore_index=True)
+    candidates = pd.concat(frames, ignore_index=True) if frames else pd.DataFrame()
+    if candidates.empty:
+        return _no_candidates(dopant_fraction)
     return _finish(candidates, dopant_fraction)
+
+
+def _no_candidates(dopant_fraction: Fraction) -> pd.DataFrame:
+    """An empty candidate table with the columns and dtypes of a full one.
+
+    pandas cannot infer string dtypes of empty columns, so the table is made from
+    one acceptor and one donor placeholder and then emptied: the rules downstream
+    see the same schema whether or not anything survived.
+    """
+    placeholder = pd.DataFrame({
+        "host": ["-", "-"], "site": ["Ti", "Ti"], "site_element": ["Ti", "Ti"], "site_charge": [4, 4],
+        "coordination": [6, 6], "multiplicity": [1, 1], "element": ["Cr", "Nb"], "charge": [3, 5],
+        "ion": ["Cr3+", "Nb5+"], "delta": [-1, 1], "radius_a": [0.615, 0.64], "radius_estimated": [False, False],
+        "spin": ["", ""], "mismatch": [0.0, 0.0]})
+    options = {"singles": True, "pairs": True, "vacancy_compensation": True, "electron_compensation": True}
+    frames = [_singles(placeholder, options), _pairs(placeholder)]
+    return _finish(pd.concat(frames, ignore_index=True), dopant_fraction).iloc[0:0].reset_index(drop=True)
 
 
 def _singles(kept: pd.DataFrame, enumeration: dict) -> pd.DataFrame:
@@ -189,10 +206,6 @@ def _pairs(kept: pd.DataFrame) -> pd.DataFrame:
     pairs["kind"] = "pair"
     pairs["compensation"] = "codopant"
     return pairs
-
-
-def _empty_candidates() -> pd.DataFrame:
-    return pd.DataFrame(columns=["candidate_id", "host", "kind"])
 
 
 def _finish(c: pd.DataFrame, x: Fraction) -> pd.DataFrame:
@@ -300,6 +313,47 @@ def candidate_formula(row: pd.Series, host: Host) -> str:
     """
     amounts, order = _composition(row, host)
     return format_formula(amounts, order)
+
+
+def candidate_formulas(candidates: pd.DataFrame, hosts: dict[str, Host]) -> list[str]:
+    """The formulas of many candidates, as :func:`candidate_formula` writes them, without Fractions.
+
+    Amounts stay integers over the common denominator ``amount_den``; one pass over
+    plain tuples, for the survivors that reach the shortlist.
+    """
+    def amount_text(element: str, num: int, den: int) -> str:
+        if num == 0:
+            return ""
+        if num == den:
+            return element
+        if num % den == 0:
+            return f"{element}{num // den}"
+        return f"{element}{num / den:.4f}".rstrip("0").rstrip(".")
+
+    layouts = {h_id: ([(s.label, s.element, s.multiplicity) for s in h.sites],
+                      (h.anion.label, h.anion.element, h.anion.multiplicity)) for h_id, h in hosts.items()}
+    columns = ["host", "kind", "amount_den", "dopant_site", "dopant_element", "dopant_num", "codopant_site",
+               "codopant_element", "codopant_num", "vacancy_num"]
+    formulas = []
+    for host_id, kind, den, d_site, d_el, d_num, c_site, c_el, c_num, v_num in \
+            candidates[columns].itertuples(index=False, name=None):
+        sites, (anion_label, anion_element, anion_m) = layouts[host_id]
+        den, d_num, c_num, v_num = int(den), int(d_num), int(c_num), int(v_num)
+        on = {d_site: [(d_el, d_num)]}
+        if kind == "pair":
+            on.setdefault(c_site, []).append((c_el, c_num))
+        amounts: dict[str, int] = {}
+        for label, element, m in sites:
+            substituted = on.get(label, [])
+            amounts[element] = amounts.get(element, 0) + m * den - sum(n for _, n in substituted)
+            for el, n in substituted:
+                amounts[el] = amounts.get(el, 0) + n
+        on_anion = on.get(anion_label, [])
+        amounts[anion_element] = amounts.get(anion_element, 0) + anion_m * den - v_num - sum(n for _, n in on_anion)
+        for el, n in on_anion:
+            amounts[el] = amounts.get(el, 0) + n
+        formulas.append("".join(amount_text(el, n, den) for el, n in amounts.items()))
+    return formulas
 
 
 def candidate_composition(row: pd.Series, host: Host) -> dict[str, Fraction]:

@@ -16,7 +16,9 @@ What it shows and where each number comes from:
 * the scarcity chart -- raw-element cost per kg against the crustal abundance
   of the scarcest element (CRC Handbook via mendeleev, see
   :mod:`screening.scarcity`), with the rule set's ceilings;
-* a sortable, filterable shortlist table (plain JavaScript written here);
+* a sortable, filterable table of the best :data:`TABLE_ROWS` shortlisted
+  candidates by rank (plain JavaScript written here); the page says how many of
+  how many it shows, and ``shortlist.csv`` holds every row;
 * the safety cautions, from the toxicity flags of :mod:`screening.scarcity`
   and the radioactivity flags of the candidates;
 * the provenance record ``provenance.json`` when the results folder holds one.
@@ -25,6 +27,15 @@ The page needs no network: CSS and JavaScript are inline and every figure is
 embedded as an SVG data URI.  Each figure is also written as PNG and SVG under
 ``figures_dir``.  Matplotlib runs on the Agg backend; SVG ids are salted and
 the date left out so that the same results give the same bytes.
+
+Size is bounded so that a 1,000-host screen (~70,000 shortlisted rows) costs
+about what a 25-host one does: the table embeds at most :data:`TABLE_ROWS`
+rows, the host grid at most :data:`FUNNEL_HOSTS` hosts, the STH zoom labels at
+most :data:`STH_LABELS` onsets, and the scarcity cloud draws each distinct
+(abundance, cost) point once, rasterised inside the SVG above
+:data:`VECTOR_POINTS` points.  Constrained layout is solved once per figure
+(for the PNG) and reused for the SVG, and log axes are labelled without
+mathtext.
 """
 from __future__ import annotations
 
@@ -45,6 +56,24 @@ FIGURES = ("funnel", "funnel_hosts", "alignment", "sth", "scarcity")
 
 TOP_ALIGNMENT = 12
 """Candidates drawn in the band-alignment diagram: enough to compare, few enough to read."""
+
+TABLE_ROWS = 500
+"""Most shortlist rows embedded in the page's table (the best by rank): a browser sorts and
+filters 500 rows instantly, and the page stays a few hundred kB; shortlist.csv has all rows."""
+
+FUNNEL_HOSTS = 40
+"""Most hosts drawn in the host x rule grid (those keeping most candidates); the funnel
+table below it lists every host."""
+
+STH_LABELS = 30
+"""Most onset groups labelled in the STH zoom (those holding the best ranks)."""
+
+VECTOR_POINTS = 2000
+"""Scatter clouds with more distinct points than this are rasterised inside the SVG: one
+image instead of one SVG element per point."""
+
+PNG_DPI = 120
+"""Resolution of the PNG figures: sharp on screen, and a third fewer pixels than 150 dpi."""
 
 # The page's own palette: ink on warm paper, a slate-teal and a brick accent.
 INK = "#1f2a30"
@@ -146,12 +175,48 @@ def _save(fig, name: str, figures_dir: Path) -> str:
 
     FigureCanvasAgg(fig)
     figures_dir.mkdir(parents=True, exist_ok=True)
-    fig.savefig(figures_dir / f"{name}.png", dpi=150, metadata={"Software": None})
+    fig.savefig(figures_dir / f"{name}.png", dpi=PNG_DPI, metadata={"Software": None})
+    # Constrained layout works in figure fractions, so the solution found for the PNG holds for
+    # the SVG too; freezing it saves a second layout pass (the costliest part of a draw).
+    fig.set_layout_engine("none")
     buffer = io.BytesIO()
-    fig.savefig(buffer, format="svg", metadata={"Date": None, "Creator": None})
+    # rasterised artists (large scatter clouds) are embedded in the SVG at this resolution
+    fig.savefig(buffer, format="svg", dpi=PNG_DPI, metadata={"Date": None, "Creator": None})
     svg = buffer.getvalue()
     (figures_dir / f"{name}.svg").write_bytes(svg)
     return "data:image/svg+xml;base64," + base64.b64encode(svg).decode("ascii")
+
+
+_SUPERSCRIPT = str.maketrans("-0123456789", "⁻⁰¹²³⁴⁵⁶⁷⁸⁹")
+
+
+def _log_label(value: float) -> str:
+    exponent = round(math.log10(value))
+    return f"{value:g}" if -3 <= exponent <= 4 else "10" + str(exponent).translate(_SUPERSCRIPT)
+
+
+def _plain_log_axis(axis) -> None:
+    """Label a log axis with plain text: matplotlib's default puts every label through mathtext,
+    which was a tenth of the report's time.  Decades are labelled; minor ticks only when the
+    view spans under two decades (otherwise a narrow axis would have no label at all)."""
+    from matplotlib.ticker import Formatter
+
+    class Decades(Formatter):
+        def __init__(self, minor: bool):
+            self.minor = minor
+
+        def __call__(self, value, pos=None):
+            if not value > 0 or not math.isfinite(value):
+                return ""
+            if self.minor:
+                low, high = sorted(self.axis.get_view_interval())
+                if low <= 0 or math.log10(high / low) >= 2:
+                    return ""
+                return f"{value:.2g}"
+            return _log_label(value) if abs(math.log10(value) - round(math.log10(value))) < 1e-6 else ""
+
+    axis.set_major_formatter(Decades(False))
+    axis.set_minor_formatter(Decades(True))
 
 
 def _rule_order(funnel: pd.DataFrame) -> list[str]:
@@ -181,6 +246,7 @@ def figure_funnel(funnel: pd.DataFrame):
     left = np.fmax(summary["left"].to_numpy(float), 0.8)  # log axis: an empty step still shows
     ax.barh(y, left, color=colours, edgecolor=INK, linewidth=0.4, height=0.7)
     ax.set_xscale("log")
+    _plain_log_axis(ax.xaxis)
     ax.set_yticks(y, summary["step"].str.replace("_", " "))
     for yi, (_, row) in zip(y, summary.iterrows()):
         text = f"{row['left']:,} left" + (f"   (−{row['removed']:,})" if row["removed"] else "")
@@ -191,13 +257,30 @@ def figure_funnel(funnel: pd.DataFrame):
     return fig
 
 
-def figure_funnel_hosts(funnel: pd.DataFrame):
+def funnel_hosts_shown(funnel: pd.DataFrame, limit: int = FUNNEL_HOSTS) -> list[str]:
+    """Hosts drawn in the host x rule grid: all of them up to ``limit``, else the ``limit`` that
+    keep most candidates (ties by name), in name order."""
+    rules = _rule_order(funnel)
+    kept = funnel[funnel["rule"] == rules[-1]].groupby("host")["candidates_out"].sum()
+    kept = kept.reindex(sorted(funnel["host"].unique()), fill_value=0)
+    if len(kept) <= limit:
+        return list(kept.index)
+    best = kept.reset_index().sort_values(["candidates_out", "host"], ascending=[False, True], kind="stable")
+    return sorted(best["host"].head(limit))
+
+
+def figure_funnel_hosts(funnel: pd.DataFrame, limit: int = FUNNEL_HOSTS):
     figs = _figures()
     from matplotlib.colors import LinearSegmentedColormap, LogNorm
 
     rules = _rule_order(funnel)
-    matrix = funnel.pivot_table(index="host", columns="rule", values="removed", aggfunc="sum").reindex(columns=rules)
-    kept = funnel[funnel["rule"] == rules[-1]].set_index("host")["candidates_out"].reindex(matrix.index)
+    n_hosts = funnel["host"].nunique()
+    # A 1,000-host grid would be a 300-inch figure with 10,000 labels (gigabytes of pixels).
+    shown_hosts = funnel_hosts_shown(funnel, limit)
+    matrix = funnel.pivot_table(index="host", columns="rule", values="removed", aggfunc="sum").reindex(
+        index=shown_hosts, columns=rules)
+    kept = funnel[funnel["rule"] == rules[-1]].groupby("host")["candidates_out"].sum().reindex(matrix.index,
+                                                                                                fill_value=0)
     hosts = list(matrix.index)
     values = matrix.to_numpy(float)
     cmap = LinearSegmentedColormap.from_list("screening_removed", ["#f4efe4", "#d9a66b", "#9c4a2c", "#4a1f14"]).with_extremes(bad="white")
@@ -217,8 +300,10 @@ def figure_funnel_hosts(funnel: pd.DataFrame):
     ax.set_yticks(range(len(hosts)), hosts, fontsize=7)
     ax.tick_params(axis="x", top=True, labeltop=True, bottom=False, labelbottom=False)
     ax.spines[:].set_visible(False)
-    fig.colorbar(image, ax=ax, fraction=0.03, pad=0.02, label="candidates removed")
-    ax.set_title("Removed by each rule, per host", pad=28)
+    bar = fig.colorbar(image, ax=ax, fraction=0.03, pad=0.02, label="candidates removed")
+    _plain_log_axis(bar.ax.yaxis)
+    ax.set_title("Removed by each rule, per host" if len(hosts) == n_hosts else
+                 f"Removed by each rule: the {len(hosts)} of {n_hosts:,} hosts keeping most", pad=28)
     return fig
 
 
@@ -272,7 +357,7 @@ def figure_alignment(shortlist: pd.DataFrame, alignment: dict, top: int = TOP_AL
     return fig
 
 
-def figure_sth(shortlist: pd.DataFrame):
+def figure_sth(shortlist: pd.DataFrame, labels: int = STH_LABELS):
     figs = _figures()
     from matplotlib.patches import Rectangle
 
@@ -312,17 +397,23 @@ def figure_sth(shortlist: pd.DataFrame):
     ax.add_patch(Rectangle((x0, 0), x1 - x0, y1, fill=False, ec=BRICK, lw=0.8, ls="--"))
     zoom.set_xlim(x0, x1)
     zoom.set_ylim(-0.04 * y1, y1)
-    zoom.set_title("zoom: the shortlist (label: host · candidates · best rank)", loc="left", fontsize=9)
+    # A big screen has hundreds of distinct onsets: only the groups holding the best ranks are
+    # labelled (every group is still drawn), so the labels stay legible and few.
+    labelled = groups.index.isin(groups.nsmallest(labels, "best").index) if labels > 0 else np.zeros(len(groups), bool)
+    note = "" if labelled.all() else f"; labelled: the {int(labelled.sum())} of {len(groups)} onsets with the best ranks"
+    zoom.set_title(f"zoom: the shortlist (label: host · candidates · best rank{note})", loc="left", fontsize=9)
+    lab = groups[labelled]
+    lgx, lgy = gx[labelled], gy[labelled]
     # Vertical labels, pushed apart to a minimum spacing (neighbouring onsets can be 0.01 eV apart)
     # and tied to their points by leader lines; all start at one height above the tallest point.
     gap = (x1 - x0) / 52
-    label_x = np.array(gx, dtype=float)
+    label_x = np.array(lgx, dtype=float)
     for i in range(1, len(label_x)):
         label_x[i] = max(label_x[i], label_x[i - 1] + gap)
     if len(label_x):
-        label_x -= max(0.0, (label_x[-1] - gx[-1]) / 2)
+        label_x -= max(0.0, (label_x[-1] - lgx[-1]) / 2)
     base = float(gy.max()) * 1.08 + 0.02 * y1 if len(gy) else 0
-    for (onset, row), lx, py in zip(groups.iterrows(), label_x, gy):
+    for (onset, row), lx, py in zip(lab.iterrows(), label_x, lgy):
         names = row["hosts"]
         label = ", ".join(names[:2]) + (f" +{len(names) - 2}" if len(names) > 2 else "")
         zoom.annotate(f"{label} · {row['n']} · #{row['best']}", (onset, py), xytext=(lx, base),
@@ -339,14 +430,23 @@ def figure_scarcity(ranked: pd.DataFrame, scarcity: dict | None):
     from matplotlib.colors import LinearSegmentedColormap
 
     frame = ranked.sort_values("rank") if "rank" in ranked else ranked
-    x = frame["scarcest_abundance_ppm"].to_numpy(float)
-    y = frame["cost_usd_per_kg"].to_numpy(float)
+    # Many compositions share (abundance, cost): each distinct point is drawn once, in the colour
+    # of its best score, best drawn last (on top) -- the picture all rows would give, in a
+    # fraction of the elements. Above VECTOR_POINTS the cloud is one raster image in the SVG.
+    keys = ["scarcest_abundance_ppm", "cost_usd_per_kg"]
+    cloud = frame.drop_duplicates(keys, keep="first")  # frame is in rank order: first = best
+    if "score" in cloud:
+        cloud = cloud.sort_values("score", kind="stable")
+    x = cloud["scarcest_abundance_ppm"].to_numpy(float)
+    y = cloud["cost_usd_per_kg"].to_numpy(float)
     cmap = LinearSegmentedColormap.from_list("screening_score", ["#d9d2c3", "#7fa7a0", TEAL, "#17363b"])
     fig, ax = figs.subplots(figsize=(7.0, 4.4))
-    points = ax.scatter(x, y, c=frame["score"].to_numpy(float) if "score" in frame else None, cmap=cmap, s=14,
-                        edgecolor="none", alpha=0.8, zorder=2)
+    points = ax.scatter(x, y, c=cloud["score"].to_numpy(float) if "score" in cloud else None, cmap=cmap, s=14,
+                        edgecolor="none", alpha=0.8, zorder=2, rasterized=len(cloud) > VECTOR_POINTS)
     ax.set_xscale("log")
     ax.set_yscale("log")
+    _plain_log_axis(ax.xaxis)
+    _plain_log_axis(ax.yaxis)
     if "score" in frame:
         fig.colorbar(points, ax=ax, fraction=0.04, pad=0.02, label="score")
     best = frame.head(5)
@@ -381,7 +481,8 @@ def figure_scarcity(ranked: pd.DataFrame, scarcity: dict | None):
                 fontsize=7, color=BRICK)
     ax.set_xlabel("crustal abundance of the scarcest element / ppm (CRC Handbook via mendeleev)")
     ax.set_ylabel("raw-element cost / USD per kg")
-    ax.set_title("Cost and scarcity of every shortlisted composition")
+    ax.set_title("Cost and scarcity of every shortlisted composition"
+                 + (f" ({len(cloud):,} distinct points)" if len(cloud) < len(frame) else ""))
     return fig
 
 
@@ -391,24 +492,52 @@ def _e(value) -> str:
     return html.escape(str(value), quote=True)
 
 
+def _check_table_rows(value) -> int:
+    if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or not 1 <= int(value) <= 100_000:
+        raise ScreeningError(f"must be a whole number from 1 to 100000, got {value!r}",
+                             source="report table", field="table_rows")
+    return int(value)
+
+
+def table_rows(shortlist: pd.DataFrame, limit: int = TABLE_ROWS) -> pd.DataFrame:
+    """The rows the page's table embeds: the best ``limit`` by rank, in rank order."""
+    return shortlist.sort_values("rank", kind="stable").head(_check_table_rows(limit))
+
+
+def _json_column(values: pd.Series, fmt: str) -> np.ndarray:
+    """One table column as an object array of JSON-ready cells (None for a missing value)."""
+    out = np.full(len(values), None, dtype=object)
+    if fmt == "text":
+        present = values.notna().to_numpy()
+        out[present] = values[present].astype(str).to_numpy()
+        return out
+    numbers = pd.to_numeric(values, errors="coerce").to_numpy(float)
+    finite = np.isfinite(numbers)
+    cells = np.rint(numbers[finite]).astype(np.int64) if fmt == "int" else numbers[finite]
+    out[finite] = cells.tolist()  # Python int/float, which json writes exactly
+    return out
+
+
 def _table_payload(shortlist: pd.DataFrame) -> tuple[str, list[tuple[str, str, str]]]:
+    """JSON for the page's script: column specs and the rows of ``shortlist`` (already bounded),
+    built column by column rather than cell by cell."""
     columns = [c for c in TABLE_COLUMNS if c[0] in shortlist.columns]
-    rows = []
-    for record in shortlist[[c[0] for c in columns]].itertuples(index=False, name=None):
-        row = []
-        for value, (_, _, fmt) in zip(record, columns):
-            if value is None or (isinstance(value, float) and not math.isfinite(value)):
-                row.append(None)
-            elif fmt == "text":
-                row.append(str(value))
-            elif fmt == "int":
-                row.append(int(value))
-            else:
-                row.append(float(value))
-        rows.append(row)
+    if len(shortlist) and columns:
+        rows = np.column_stack([_json_column(shortlist[k], fmt) for k, _, fmt in columns]).tolist()
+    else:
+        rows = []
     payload = {"columns": [{"key": k, "label": label, "fmt": fmt} for k, label, fmt in columns], "rows": rows}
     # "</" would end the script element early; JSON allows the escaped solidus.
     return json.dumps(payload, ensure_ascii=False, allow_nan=False).replace("</", "<\\/"), columns
+
+
+def _table_notice(shown: int, total: int) -> str:
+    if shown < total:
+        return (f"<p class='warn' id='table-bound'>Showing the best {shown:,} of {total:,} shortlisted candidates "
+                f"(by rank); sorting and filtering act on these {shown:,}. <code>shortlist.csv</code> holds all "
+                f"{total:,}.</p>")
+    return (f"<p class='muted' id='table-bound'>Showing all {total:,} shortlisted candidates "
+            "(also in <code>shortlist.csv</code>).</p>")
 
 
 def _safety_section(ranked: pd.DataFrame, rejected: pd.DataFrame, scarcity: dict | None) -> str:
@@ -419,9 +548,10 @@ def _safety_section(ranked: pd.DataFrame, rejected: pd.DataFrame, scarcity: dict
     counts = dopants.value_counts()
     flagged = [(s, int(counts[s]), toxicity.loc[s, "caution"], toxicity.loc[s, "basis"])
                for s in sorted(counts.index) if s in toxicity.index]
-    host_toxic = sorted({s for text in ranked["toxic_elements"].fillna("") for s in str(text).split(";") if s}
+    host_toxic = sorted({s for text in ranked["toxic_elements"].dropna().unique() for s in str(text).split(";") if s}
                         - set(counts.index))
-    radioactive = sorted({s for text in ranked["radioactive_elements"].fillna("") for s in str(text).split(";") if s})
+    radioactive = sorted({s for text in ranked["radioactive_elements"].dropna().unique()
+                          for s in str(text).split(";") if s})
     removed_radioactive = sorted(set(rejected.loc[rejected["rule"] == "radioactive", "dopant"]))
     items = []
     if flagged:
@@ -495,10 +625,13 @@ def _funnel_table(funnel: pd.DataFrame) -> str:
     kept = funnel[funnel["rule"] == rules[-1]].set_index("host")["candidates_out"]
     enumerated = funnel.groupby("host")["enumerated"].max()
     head = "".join(f"<th>{_e(r.replace('_', ' '))}</th>" for r in rules)
+    values = matrix.fillna(0).to_numpy(float).astype(np.int64)
+    enumerated = enumerated.reindex(matrix.index).to_numpy()
+    kept = kept.groupby(level=0).sum().reindex(matrix.index, fill_value=0).to_numpy()
+    # one row per host (1,000 at most in practice): a loop over hosts, not over candidates
     body = "".join(
-        f"<tr><th>{_e(h)}</th><td>{int(enumerated[h]):,}</td>"
-        + "".join(f"<td>{int(v):,}</td>" for v in matrix.loc[h].fillna(0))
-        + f"<td class='kept'>{int(kept.get(h, 0)):,}</td></tr>" for h in matrix.index)
+        f"<tr><th>{_e(h)}</th><td>{int(n):,}</td>" + "".join(f"<td>{v:,}</td>" for v in row)
+        + f"<td class='kept'>{int(k):,}</td></tr>" for h, n, row, k in zip(matrix.index, enumerated, values, kept))
     return (f"<table class='plain num' id='funnel-table'><thead><tr><th>host</th><th>enumerated</th>{head}"
             f"<th>kept</th></tr></thead><tbody>{body}</tbody></table>")
 
@@ -556,8 +689,9 @@ _JS = r"""
 (function () {
   "use strict";
   var data = JSON.parse(document.getElementById("shortlist-data").textContent);
-  var cols = data.columns, rows = data.rows, total = rows.length;
   var table = document.getElementById("shortlist"), body = table.tBodies[0];
+  var cols = data.columns, rows = data.rows, embedded = rows.length;
+  var total = Number(table.getAttribute("data-rows-total")) || embedded;
   var search = document.getElementById("filter-text"), hostSel = document.getElementById("filter-host");
   var state = {sort: "rank", dir: 1, q: "", host: ""};
   function indexOf(key) { for (var i = 0; i < cols.length; i++) if (cols[i].key === key) return i; return -1; }
@@ -622,7 +756,8 @@ _JS = r"""
     body.appendChild(frag);
     table.setAttribute("data-rows-shown", String(shown.length));
     table.setAttribute("data-sorted-by", (state.dir < 0 ? "-" : "") + state.sort);
-    document.getElementById("row-count").textContent = shown.length + " of " + total + " candidates shown";
+    document.getElementById("row-count").textContent = shown.length + " of " + embedded + " rows shown" +
+      (embedded < total ? " (the best " + embedded + " of " + total + " by rank; shortlist.csv has all)" : "");
     var ths = table.tHead.rows[0].cells;
     for (var j = 0; j < ths.length; j++) {
       ths[j].setAttribute("aria-sort", cols[j].key === state.sort ? (state.dir > 0 ? "ascending" : "descending") : "none");
@@ -661,12 +796,14 @@ def _figure(uri: str, name: str, alt: str, caption: str) -> str:
 
 def write_report(results_dir, ranked_file, shortlist_file, rejected_file, funnel_file, provenance_file,
                  alignment: dict, out_html, figures_dir, *, scarcity: dict | None = None,
-                 weights: dict | None = None, title: str | None = None, top: int = TOP_ALIGNMENT) -> Path:
+                 weights: dict | None = None, title: str | None = None, top: int = TOP_ALIGNMENT,
+                 table_limit: int = TABLE_ROWS) -> Path:
     """Write ``out_html`` and the figures (PNG + SVG) under ``figures_dir``; returns the page's path.
 
     ``alignment`` is the rule set's alignment section (pH, overpotentials, mode);
     ``scarcity`` (optional) its scarcity section, for the ceilings drawn on the
-    scarcity chart; ``weights`` the ranking weights, shown beside the table.
+    scarcity chart; ``weights`` the ranking weights, shown beside the table;
+    ``table_limit`` the most rows the table embeds (the best by rank).
     ``provenance_file`` may be None or a path that does not exist: the page then
     says that the record is absent.
     """
@@ -674,6 +811,7 @@ def write_report(results_dir, ranked_file, shortlist_file, rejected_file, funnel
 
     results_dir = Path(results_dir)
     alignment = _check_alignment(alignment)
+    table_limit = _check_table_rows(table_limit)
     shortlist = _read(shortlist_file, lambda p: pd.read_csv(p, keep_default_na=False, na_values=[""]),
                       SHORTLIST_NEEDS, "shortlist")
     ranked = _read(ranked_file, pd.read_parquet, RANKED_NEEDS, "ranked stage file")
@@ -696,7 +834,10 @@ def write_report(results_dir, ranked_file, shortlist_file, rejected_file, funnel
     scarcity_uri = _save(figure_scarcity(ranked, scarcity), "scarcity", figures_dir)
 
     summary = funnel_summary(funnel)
-    payload, columns = _table_payload(shortlist.sort_values("rank"))
+    embedded = table_rows(shortlist, table_limit)
+    payload, columns = _table_payload(embedded)
+    n_hosts = funnel["host"].nunique()
+    grid_hosts = len(funnel_hosts_shown(funnel))
     has_sigma = {"cbm_sigma_v", "vbm_sigma_v"} <= set(shortlist.columns)
     from screening import bands
 
@@ -728,7 +869,9 @@ def write_report(results_dir, ranked_file, shortlist_file, rejected_file, funnel
 {_figure(funnel_uri, "funnel", "bar chart of candidates left after each rule",
          "Candidates left after each rule, in the order the rules run, summed over hosts. Single-ion rules count the pairs a removed ion would have formed.")}
 {_figure(hosts_uri, "funnel_hosts", "heat map of candidates removed per host and rule",
-         "Candidates removed by each rule for each host; the last column is what the host keeps on the shortlist.")}
+         "Candidates removed by each rule for each host; the last column is what the host keeps on the shortlist."
+         + ("" if grid_hosts == n_hosts else
+            f" Drawn: the {grid_hosts} of {n_hosts:,} hosts keeping most candidates; the table below lists every host."))}
 </div>
 <details><summary>Funnel as a table</summary>{_funnel_table(funnel)}</details>
 </section>
@@ -741,19 +884,22 @@ def write_report(results_dir, ranked_file, shortlist_file, rejected_file, funnel
 <section id="sth"><h2>3. STH limit against absorption onset</h2>
 {_figure(sth_uri, "sth", "STH limit curve with the candidates' onsets",
          "Curve: photon-counting STH limit under ASTM G173-03 AM1.5G (unit quantum yield, 1.23 V per electron). "
-         "Points: the shortlisted candidates, grouped where they share an onset.")}
+         "Points: the shortlisted candidates, grouped where they share an onset"
+         + (f"; the {STH_LABELS} groups with the best ranks are labelled." if shortlist["onset_ev"].nunique() > STH_LABELS else "."))}
 </section>
 <section id="scarcity"><h2>4. Cost and scarcity</h2>
 {_figure(scarcity_uri, "scarcity", "scatter of cost per kg against scarcest-element abundance",
-         "Each point is a shortlisted composition; colour is its score; dashed lines are the rule set's ceilings. The five best are labelled.")}
+         "Each point is a shortlisted composition (compositions sharing abundance and cost drawn once, in their best score's colour); "
+         "colour is its score; dashed lines are the rule set's ceilings. The five best are labelled.")}
 </section>
 <section id="table"><h2>5. Shortlist</h2>
 <p class="muted">Click a column head to sort (again to reverse). Filter by any text (all words must match) or by host. Score weights: {_e(weights_text)}. <code>screening explain RANK</code> prints every rule a candidate met and the numbers behind its score.</p>
 <div class="controls"><input id="filter-text" type="search" placeholder="filter, e.g. Cr La SrTiO3" aria-label="filter the shortlist">
 <select id="filter-host" aria-label="host"><option value="">all hosts</option></select>
 <span id="row-count"></span></div>
-<div class="tablewrap"><table id="shortlist" data-rows-total="{len(shortlist)}"><thead></thead><tbody id="shortlist-body"></tbody></table></div>
-<noscript><p class="warn">The table needs JavaScript; the same rows are in shortlist.csv.</p></noscript>
+{_table_notice(len(embedded), len(shortlist))}
+<div class="tablewrap"><table id="shortlist" data-rows-total="{len(shortlist)}" data-rows-embedded="{len(embedded)}"><thead></thead><tbody id="shortlist-body"></tbody></table></div>
+<noscript><p class="warn">The table needs JavaScript; its rows, and all the others, are in shortlist.csv.</p></noscript>
 </section>
 <section id="safety"><h2>6. Safety</h2>
 {_safety_section(ranked, rejected, scarcity)}

@@ -20,6 +20,7 @@ from __future__ import annotations
 import copy
 import hashlib
 import json
+import math
 from dataclasses import dataclass
 from fractions import Fraction
 from functools import lru_cache
@@ -28,6 +29,7 @@ from pathlib import Path
 import yaml
 
 from screening.errors import ScreeningError
+from screening.hosts import read_yaml
 
 SCHEMA_FILE = Path(__file__).with_name("data") / "ruleset.schema.json"
 SECTIONS = ("workflow", "enumeration", "filters", "scarcity", "alignment", "ranking")
@@ -91,8 +93,29 @@ def _schema_at(path) -> dict:
     return node
 
 
+def _non_finite(node, path=()):
+    """Key path of the first NaN or infinite number (JSON Schema's bounds let NaN through)."""
+    if isinstance(node, float) and not math.isfinite(node):
+        return path
+    if isinstance(node, dict):
+        items = node.items()
+    elif isinstance(node, list):
+        items = enumerate(node)
+    else:
+        return None
+    for key, value in items:
+        found = _non_finite(value, (*path, key))
+        if found is not None:
+            return found
+    return None
+
+
 def validate_document(document, source: str) -> dict:
     """Check a parsed rule set against the schema; returns it with defaults filled in."""
+    bad = _non_finite(document)
+    if bad is not None:
+        raise ScreeningError("must be a finite number, not NaN or infinity", source=source,
+                             field=".".join(map(str, bad)))
     import jsonschema
 
     validator = jsonschema.Draft202012Validator(schema())
@@ -260,12 +283,8 @@ def load_ruleset(path: str | Path) -> RuleSet:
     if not path.is_file():
         raise ScreeningError("rule-set file not found", source=source)
     text = path.read_text(encoding="utf-8")
-    try:
-        document = yaml.safe_load(text)
-    except yaml.YAMLError as exc:
-        mark = getattr(exc, "problem_mark", None)
-        where = f" at line {mark.line + 1}, column {mark.column + 1}" if mark else ""
-        raise ScreeningError(f"not valid YAML{where}: {getattr(exc, 'problem', exc)}", source=source) from None
+    # the strict safe loader: refuses repeated keys, Python tags and runaway nesting in one line
+    document = read_yaml(path, "rule-set")
     if not isinstance(document, dict):
         raise ScreeningError("a rule set must be a YAML mapping", source=source)
     filled = validate_document(document, source)

@@ -236,11 +236,9 @@ def test_rule_set_file_missing(screen_dir, capsys):
     _assert_one_line_error(code, err, str(screen_dir / "absent.yaml"), "not found")
 
 
-# Known gaps in screening/rulesets.py (owned by the issue-6 engineer); strict, so that the fix turns
-# them into failures that ask for the marker to go.
+# Gaps once found in screening/rulesets.py and since fixed: NaN thresholds, repeated keys, a name
+# with a trailing newline.
 
-@pytest.mark.xfail(strict=True, reason="rulesets: jsonschema lets NaN through minimum/maximum (NaN < 0 is "
-                                       "False), and mismatch > NaN is False, so every ion would pass")
 def test_rule_set_nan_threshold_is_refused(screen_dir, capsys):
     rules = screen_dir / "small_rules.yaml"
     rules.write_text(rules.read_text().replace("max_relative: 0.15", "max_relative: .nan"))
@@ -248,8 +246,6 @@ def test_rule_set_nan_threshold_is_refused(screen_dir, capsys):
     _assert_one_line_error(code, err, str(rules), "filters.radius_mismatch.max_relative")
 
 
-@pytest.mark.xfail(strict=True, reason="rulesets: yaml.safe_load keeps the last of two equal keys silently; "
-                                       "hosts.read_yaml refuses them")
 def test_rule_set_repeated_key_is_refused(screen_dir, capsys):
     rules = screen_dir / "small_rules.yaml"
     rules.write_text(rules.read_text().replace("max_relative: 0.15", "max_relative: 0.15\n    max_relative: 0.5"))
@@ -257,8 +253,6 @@ def test_rule_set_repeated_key_is_refused(screen_dir, capsys):
     _assert_one_line_error(code, err, str(rules), "max_relative")
 
 
-@pytest.mark.xfail(strict=True, reason="schema: the name pattern ends in '$', which Python's re (used by "
-                                       "jsonschema) also matches before a final newline")
 def test_rule_set_name_with_newline_is_refused(screen_dir, capsys):
     rules = screen_dir / "small_rules.yaml"
     rules.write_text(rules.read_text().replace("name: small", 'name: "small\\n"'))
@@ -334,9 +328,6 @@ def test_subprocess_bad_formula_exits_2_without_traceback(tmp_path):
     assert list(tmp_path.iterdir()) == []
 
 
-@pytest.mark.xfail(strict=True, raises=RecursionError,
-                   reason="rulesets.load_ruleset catches yaml.YAMLError only; PyYAML's composer recurses per "
-                          "nesting level, so deep nesting escapes as RecursionError (hosts.read_yaml catches it)")
 def test_rule_set_nested_too_deeply(screen_dir, capsys):
     rules = screen_dir / "small_rules.yaml"
     rules.write_text("name: " + "[" * 1000 + "]" * 1000 + "\n")

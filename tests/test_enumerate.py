@@ -118,3 +118,13 @@ def test_amount_matrix_matches_formula():
 def test_host_ion_on_its_own_site_is_not_a_dopant():
     frame = candidates_for("TiO2-rutile", [("Ti", 4), ("Ti", 3)])
     assert list(frame["candidate_id"]) == ["TiO2-rutile/Ti3+@Ti+V_O"]
+
+
+def test_fast_formulas_equal_the_exact_ones():
+    # candidate_formulas (integers over a common denominator) must write what the Fraction path writes.
+    frame = candidates_for("SrTiO3", [("La", 3), ("Cr", 3), ("Mg", 2), ("Nb", 5), ("Na", 1), ("W", 6)])
+    frame = pd.concat([frame, candidates_for("Ga2O3-beta", [("Cr", 3), ("Zn", 2), ("Sn", 4), ("Nb", 5)])])
+    hosts = {h: HOSTS[h] for h in ("SrTiO3", "Ga2O3-beta")}
+    expected = [enum.candidate_formula(row, hosts[row["host"]]) for _, row in frame.iterrows()]
+    assert enum.candidate_formulas(frame, hosts) == expected
+    assert len(expected) > 50

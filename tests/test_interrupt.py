@@ -145,9 +145,6 @@ def test_interrupted_screen_resumes_with_the_same_results(interrupted):
     assert len(pd.read_csv(out / "shortlist.csv")) > 0  # a comparison of two empty lists would prove little
 
 
-@pytest.mark.xfail(strict=True, reason="cli.main catches only ScreeningError: Ctrl-C during `screening run` "
-                                       "re-raises KeyboardInterrupt from progress.run_workflow and prints a "
-                                       "traceback; it should print one line and exit 130")
 def test_interrupted_screen_says_so_in_one_line(interrupted):
     assert "Traceback" not in interrupted["stderr"]
     assert interrupted["returncode"] == 130

@@ -93,22 +93,11 @@ def _screen(small, sections: dict) -> pd.DataFrame:
     key = json.dumps([sections["enumeration"], sections["filters"], sections["scarcity"]], sort_keys=True)
     if key not in small["cache"]:
         out = Path(tempfile.mkdtemp(dir=small["root"]))
-        try:
-            small["cache"][key] = pipeline.screen_shard(
-                small["hosts_json"], 0, small["pool"], copy.deepcopy(sections["enumeration"]),
-                copy.deepcopy(sections["filters"]), copy.deepcopy(sections["scarcity"]),
-                out / "kept.parquet", out / "rejected.parquet", out / "funnel.csv")
-        except TypeError as error:
-            # Known bug, pinned by test_screen_where_nothing_is_left_to_combine (strict xfail):
-            # enumerate.combine fails on an empty set of candidates ('str + int' on empty columns).
-            # Drop the example here so that the other invariants stay checked; remove this once
-            # that test passes.
-            if not any(text in str(error) for text in EMPTY_FRAME_ERRORS):
-                raise
-            small["cache"][key] = None
-    result = small["cache"][key]
-    assume(result is not None)
-    return result
+        small["cache"][key] = pipeline.screen_shard(
+            small["hosts_json"], 0, small["pool"], copy.deepcopy(sections["enumeration"]),
+            copy.deepcopy(sections["filters"]), copy.deepcopy(sections["scarcity"]),
+            out / "kept.parquet", out / "rejected.parquet", out / "funnel.csv")
+    return small["cache"][key]
 
 
 # --- independent re-check of every threshold ----------------------------------------------------
@@ -288,7 +277,6 @@ def test_alignment_requirement_and_modes_nest(small, edges):
     assert kept < edges["kept_ids"], "the default alignment should remove some of the small screen"
 
 
-EMPTY_FRAME_ERRORS = ("not supported for dtype 'str' with dtype 'int64'",)
 
 
 def _screen_nothing_left(small, tmp_path, values):
@@ -300,10 +288,6 @@ def _screen_nothing_left(small, tmp_path, values):
     return kept
 
 
-@pytest.mark.xfail(strict=True, raises=TypeError,
-                   reason="enumerate._finish: on an empty frame np.where(...) gives a float array and "
-                          "'str + int' fails, so a screen whose rules leave nothing to combine crashes "
-                          "instead of giving an empty shortlist")
 def test_screen_where_nothing_is_left_to_combine(small, tmp_path):
     # 500 ppm leaves only Fe, Al, Mg of the small pool (CRC crustal abundances via mendeleev): on these
     # hosts all acceptors, no donor, so with singles off enumerate.combine has no pair to build

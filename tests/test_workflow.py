@@ -10,6 +10,7 @@ import pytest
 from screening import cli
 
 DATA = Path(__file__).resolve().parent / "data"
+REPO = DATA.parents[1]
 SHORTLIST_REQUIRED = ["host", "dopant", "dopant_site", "codopant", "codopant_site", "ratio", "compensation",
                       "formula", "cbm_v_nhe", "vbm_v_nhe", "onset_ev", "sth_limit", "score", "rank"]
 
@@ -19,6 +20,12 @@ def small_results(tmp_path_factory) -> Path:
     root = tmp_path_factory.mktemp("small")
     for name in ("small_rules.yaml", "small_hosts.yaml", "small_pool.yaml"):
         shutil.copy(DATA / name, root / name)
+    # one host from a CIF file as well (issue 4): the screen takes a folder of structures
+    (root / "cif").mkdir()
+    for suffix in (".cif", ".yaml"):
+        shutil.copy(REPO / "candidates" / "structures" / f"ZnO_wurtzite{suffix}", root / "cif")
+    with open(root / "small_rules.yaml", "a") as rules:
+        rules.write("structures: cif\n")
     out = root / "results"
     assert cli.main(["run", "--rules", str(root / "small_rules.yaml"), "--out", str(out), "--cores", "2"]) == 0
     return out
@@ -92,3 +99,12 @@ def test_kept_candidates_meet_the_thresholds(small_results):
     assert (shortlist["her_margin_v"] >= 0).all() and (shortlist["oer_margin_v"] >= 0).all()
     pairs = shortlist[shortlist["compensation"] == "codopant"]
     assert pairs["ratio"].isin(["1:1", "1:2", "2:1"]).all()
+
+
+def test_a_cif_host_goes_through_the_whole_workflow(small_results):
+    # ZnO (wurtzite) from its CIF: Zn2+ 4-fold by CrystalNN, as in the hand-written library entry.
+    funnel = pd.read_csv(small_results / "funnel.csv")
+    rows = funnel[funnel["host"] == "ZnO_wurtzite"]
+    assert len(rows) > 0 and rows["enumerated"].iloc[0] > 0
+    rejected = pd.read_parquet(small_results / "rejected.parquet")
+    assert (rejected["host"] == "ZnO_wurtzite").any()

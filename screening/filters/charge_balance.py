@@ -26,9 +26,9 @@ def apply(candidates: pd.DataFrame, thresholds: dict) -> tuple[pd.DataFrame, pd.
     threshold = np.where(uncompensated, 0, max_ratio)
     detail = np.where(
         uncompensated,
-        "uncompensated effective charge " + candidates["dopant_delta"].map(lambda d: f"{d:+d}")
+        "uncompensated effective charge " + candidates["dopant_delta"].map(lambda d: f"{d:+d}").astype(str)
         + " (no compensation allowed by the rule set)",
-        "ratio " + candidates["ratio"] + " needs more than " + str(max_ratio) + " ions of one kind")
+        "ratio " + candidates["ratio"].astype(str) + " needs more than " + str(max_ratio) + " ions of one kind")
     kept = candidates[~bad]
     # an invariant of the enumeration, not a user-facing rule: fail loudly if broken
     residual = net_charge(kept)
