@@ -38,7 +38,7 @@ def _edges_parser(sub) -> None:
     p.add_argument("--json", action="store_true", help="print one JSON object")
 
 
-def build_parser() -> argparse.ArgumentParser:
+def build_parser(argv: list[str] | None = None) -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="screening",
         description="Shortlist dopant and codopant pairs for wide-gap oxide hosts as visible-light "
@@ -47,19 +47,31 @@ def build_parser() -> argparse.ArgumentParser:
     sub = parser.add_subparsers(dest="command", required=True)
     _run_parser(sub)
     _edges_parser(sub)
-    for module in _command_modules():
-        module.register(sub)
+    # Only the sub-command being run imports its module (they pull in pandas); the others
+    # are listed by name and help line, which keeps `screening --help` fast.
+    words = sys.argv[1:] if argv is None else argv
+    chosen = next((w for w in words if not w.startswith("-")), None)
+    for name, help_line in COMMAND_MODULES.items():
+        if name == chosen:
+            _command_module(name).register(sub)
+        else:
+            sub.add_parser(name, help=help_line, add_help=False)
     return parser
 
 
-# Sub-commands that live in their own module, each with register(subparsers) and run(args) -> int.
-COMMAND_MODULES = ["audit", "diff", "explain"]
+# Sub-commands that live in their own module, each with register(subparsers) and run(args) -> int,
+# with the help line shown by `screening --help`.
+COMMAND_MODULES = {
+    "audit": "scarcity, cost and supply audit of a formula or a shortlist",
+    "diff": "compare two results folders: provenance, then candidates that entered, left or moved",
+    "explain": "every rule a candidate met, its defects and the numbers behind its score",
+}
 
 
-def _command_modules():
+def _command_module(name: str):
     import importlib
 
-    return [importlib.import_module(f"screening.{name}") for name in COMMAND_MODULES]
+    return importlib.import_module(f"screening.{name}")
 
 
 def _version() -> str:
@@ -149,7 +161,7 @@ def cmd_run(args) -> int:
 
 
 def main(argv: list[str] | None = None) -> int:
-    parser = build_parser()
+    parser = build_parser(argv)
     args = parser.parse_args(argv)
     try:
         if args.command == "run":
