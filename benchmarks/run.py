@@ -190,7 +190,7 @@ def part_help() -> dict:
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     parser.add_argument("--sizes", default="10,100,1000", help="host counts of the scaling series")
-    parser.add_argument("--ratio-hosts", type=int, default=25, help="hosts for the pipeline/reference ratio")
+    parser.add_argument("--ratio-hosts", type=int, default=100, help="hosts for the pipeline/reference ratio")
     parser.add_argument("--cores", type=int, default=2)
     parser.add_argument("--only", choices=["ratio", "scaling", "e2e", "help"], action="append")
     parser.add_argument("--json", type=Path, help="also write the results to this JSON file")

@@ -341,7 +341,7 @@ def rank(hosts_json, kept_files, edge_files, alignment: dict, ranking: dict, str
     frame["rank"] = np.arange(1, len(frame) + 1)
     if ranking["top"] is not None:
         frame = frame.head(int(ranking["top"]))
-    frame["formula"] = [enum.candidate_formula(row, hosts[row["host"]]) for _, row in frame.iterrows()]
+    frame["formula"] = enum.candidate_formulas(frame, hosts)
     log.info("ranked %d candidates (%d removed by alignment)", len(frame), len(removed))
     write_parquet(frame.reset_index(drop=True), ranked_out)
     return frame

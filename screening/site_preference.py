@@ -26,7 +26,11 @@ one) has likelihood 1.
 """
 from __future__ import annotations
 
+import json
+import math
+import re
 from functools import lru_cache
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -35,28 +39,82 @@ from screening import ions
 from screening.hosts import Host, sites_frame
 
 
-@lru_cache(maxsize=1)
-def _model():
-    from pymatgen.analysis.structure_prediction.substitution_probability import SubstitutionProbability
+_SPECIES = re.compile(r"^([A-Z][a-z]?)(\d*)([+-])$")
 
-    return SubstitutionProbability()
+
+def _species_key(text: str) -> tuple[str, int] | None:
+    match = _SPECIES.match(text)
+    if match is None:  # e.g. the dummy species 'D1+' of the table
+        return None
+    element, magnitude, sign = match.groups()
+    if element == "D":
+        return None
+    charge = int(magnitude or 1)
+    return element, charge if sign == "+" else -charge
+
+
+@lru_cache(maxsize=1)
+def _model() -> tuple[dict, dict]:
+    """Hautier et al.'s fitted lambda table (the one pymatgen ships) as plain dictionaries.
+
+    cond_prob(s1, s2) = exp(lambda(s1, s2)) / px(s2) with px(s) = sum over all species t of
+    exp(lambda(s, t)) and lambda = alpha = -5 for pairs never observed, as in pymatgen's
+    ``SubstitutionProbability``; computed here on (element, charge) keys because building
+    pymatgen's object costs seconds per process.  The tests check the values against it.
+    """
+    import importlib.util
+
+    spec = importlib.util.find_spec("pymatgen.core.structure_prediction")
+    if spec is None or not spec.submodule_search_locations:
+        spec = importlib.util.find_spec("pymatgen.analysis.structure_prediction")
+    table_file = Path(next(iter(spec.submodule_search_locations))) / "data" / "lambda.json"
+    rows = json.loads(table_file.read_text())
+    lambdas: dict[frozenset, float] = {}
+    species: set[tuple[str, int]] = set()
+    for first, second, value in rows:
+        a, b = _species_key(first), _species_key(second)
+        if a is None or b is None:
+            continue
+        species.update((a, b))
+        lambdas[frozenset((a, b))] = float(value)
+    unobserved = math.exp(ALPHA)
+    px = {s: 0.0 for s in species}
+    partners = {s: 0 for s in species}
+    for key, value in lambdas.items():
+        members = tuple(key)
+        if len(members) == 1:
+            px[members[0]] += math.exp(value)
+            partners[members[0]] += 1
+        else:
+            for member in members:
+                px[member] += math.exp(value)
+                partners[member] += 1
+    for s in species:
+        px[s] += (len(species) - partners[s]) * unobserved
+    return lambdas, px
+
+
+ALPHA = -5.0
+"""lambda of a substitution never observed in the data (pymatgen's default)."""
+
+
+def cond_prob(ion: tuple[str, int], site_ion: tuple[str, int]) -> float:
+    """Probability of ``ion`` substituting for ``site_ion`` (Hautier et al. 2011); NaN if either is unknown."""
+    lambdas, px = _model()
+    if ion not in px or site_ion not in px:
+        return float("nan")
+    return math.exp(lambdas.get(frozenset((ion, site_ion)), ALPHA)) / px[site_ion]
 
 
 def substitution_probability(pairs: pd.DataFrame) -> np.ndarray:
     """Hautier et al. (2011) cond_prob(ion, site ion) for rows element, charge, site_element, site_charge.
 
-    NaN where pymatgen's table has no entry for either species.  Evaluated once
-    per distinct pair (a handful), then mapped back.
+    NaN where the table has no entry for either species.  Evaluated once per
+    distinct pair (a handful), then mapped back.
     """
-    from pymatgen.core import Species
-
-    model = _model()
-    known = model.species
     keys = pairs[["element", "charge", "site_element", "site_charge"]].drop_duplicates()
-    values = {}
-    for row in keys.itertuples(index=False):
-        ion, site_ion = Species(row.element, int(row.charge)), Species(row.site_element, int(row.site_charge))
-        values[tuple(row)] = model.cond_prob(ion, site_ion) if ion in known and site_ion in known else np.nan
+    values = {tuple(row): cond_prob((row[0], int(row[1])), (row[2], int(row[3])))
+              for row in keys.itertuples(index=False, name=None)}
     index = pd.MultiIndex.from_frame(pairs[["element", "charge", "site_element", "site_charge"]])
     return np.array([values[k] for k in index], dtype=float)
 

@@ -80,3 +80,19 @@ def test_single_site_host_and_pairs():
     # La3+ on the B site (La3+ VI 1.032 Å vs Ti4+ 0.605 Å) is enumerated but not preferred
     likelihood, preferred = by_id["SrTiO3/La3+@Ti+V_O"]
     assert not preferred and likelihood < 0.01
+
+
+def test_fast_table_equals_pymatgens_substitution_probability():
+    # pymatgen's SubstitutionProbability (Hautier et al., Inorg. Chem. 50 (2011) 656) is the reference.
+    from pymatgen.analysis.structure_prediction.substitution_probability import SubstitutionProbability
+    from pymatgen.core import Species
+
+    from screening import site_preference
+
+    reference = SubstitutionProbability()
+    pairs = [(("La", 3), ("Sr", 2)), (("La", 3), ("Ti", 4)), (("Cr", 3), ("Ti", 4)), (("Nb", 5), ("Ti", 4)),
+             (("Rh", 3), ("Ti", 4)), (("Zn", 2), ("Ga", 3)), (("Na", 1), ("Ta", 5)), (("Fe", 3), ("Fe", 3))]
+    for ion, site_ion in pairs:
+        expected = reference.cond_prob(Species(*ion), Species(*site_ion))
+        assert site_preference.cond_prob(ion, site_ion) == pytest.approx(expected, rel=1e-9), (ion, site_ion)
+    assert np.isnan(site_preference.cond_prob(("Xx", 3), ("Ti", 4)))
