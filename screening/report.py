@@ -35,11 +35,14 @@ most :data:`STH_LABELS` onsets, and the scarcity cloud draws each distinct
 (abundance, cost) point once, rasterised inside the SVG above
 :data:`VECTOR_POINTS` points.  Constrained layout is solved once per figure
 (for the PNG) and reused for the SVG, and log axes are labelled without
-mathtext.
+mathtext.  The two funnel figures, which read funnel.csv alone, are kept under
+``figures_dir/.cache`` by content key, so a rerun after a change of ranking
+weights copies them instead of drawing them.
 """
 from __future__ import annotations
 
 import base64
+import hashlib
 import html
 import io
 import json
@@ -68,7 +71,7 @@ table below it lists every host."""
 STH_LABELS = 30
 """Most onset groups labelled in the STH zoom (those holding the best ranks)."""
 
-VECTOR_POINTS = 2000
+VECTOR_POINTS = 500
 """Scatter clouds with more distinct points than this are rasterised inside the SVG: one
 image instead of one SVG element per point."""
 
@@ -117,6 +120,14 @@ def _read(path, reader, needs: list[str], what: str) -> pd.DataFrame:
     if missing:
         raise ScreeningError(f"{what} lacks column(s) {', '.join(missing)}", source=str(path))
     return frame
+
+
+def _read_parquet_columns(path: Path, columns: list[str]) -> pd.DataFrame:
+    """The listed columns that the file has (the caller names any that are missing)."""
+    import pyarrow.parquet as pq
+
+    present = set(pq.read_schema(path).names)
+    return pd.read_parquet(path, columns=[c for c in columns if c in present])
 
 
 def _read_provenance(path) -> dict | None:
@@ -192,14 +203,15 @@ _SUPERSCRIPT = str.maketrans("-0123456789", "⁻⁰¹²³⁴⁵⁶⁷⁸⁹")
 
 def _log_label(value: float) -> str:
     exponent = round(math.log10(value))
-    return f"{value:g}" if -3 <= exponent <= 4 else "10" + str(exponent).translate(_SUPERSCRIPT)
+    return f"{value:g}" if -2 <= exponent <= 3 else "10" + str(exponent).translate(_SUPERSCRIPT)
 
 
 def _plain_log_axis(axis) -> None:
     """Label a log axis with plain text: matplotlib's default puts every label through mathtext,
     which was a tenth of the report's time.  Decades are labelled; minor ticks only when the
-    view spans under two decades (otherwise a narrow axis would have no label at all)."""
-    from matplotlib.ticker import Formatter
+    view spans under two decades (otherwise a narrow axis would have no label at all).  Minor
+    ticks sit at 2 and 5 only: eight per decade over eight decades was most of a figure's draw."""
+    from matplotlib.ticker import Formatter, LogLocator
 
     class Decades(Formatter):
         def __init__(self, minor: bool):
@@ -215,8 +227,53 @@ def _plain_log_axis(axis) -> None:
                 return f"{value:.2g}"
             return _log_label(value) if abs(math.log10(value) - round(math.log10(value))) < 1e-6 else ""
 
+    axis.set_minor_locator(LogLocator(base=10, subs=(2.0, 5.0)))
     axis.set_major_formatter(Decades(False))
     axis.set_minor_formatter(Decades(True))
+
+
+CACHE_DIR = ".cache"
+"""Folder under ``figures_dir`` holding the funnel figures by content key (see :func:`_cached`)."""
+
+
+def _funnel_key(name: str, funnel: pd.DataFrame) -> str:
+    """Content key of a funnel figure: its name, funnel.csv's cells, the host limit, the rule
+    order, this module's source and matplotlib's version -- everything the drawing reads."""
+    import matplotlib
+
+    from screening.pipeline import FUNNEL_ORDER
+
+    digest = hashlib.sha256()
+    for part in (name, FUNNEL_HOSTS, PNG_DPI, list(FUNNEL_ORDER), list(funnel.columns), matplotlib.__version__):
+        digest.update(repr(part).encode("utf-8") + b"\0")
+    digest.update(Path(__file__).read_bytes())
+    digest.update(pd.util.hash_pandas_object(funnel, index=False).to_numpy().tobytes())
+    return digest.hexdigest()[:24]
+
+
+def _cached(name: str, key: str, draw, figures_dir: Path) -> str:
+    """The figure ``name`` for content ``key``: copied from the cache when drawn before, else drawn.
+
+    A change of ranking weights reruns the report but leaves funnel.csv as it was; the two
+    funnel figures were a third of the stage's time.  Same inputs give the same bytes (SVG
+    ids salted, no dates), so a cached figure is the figure a fresh draw would give.
+    """
+    from screening.pipeline import _atomic
+
+    cache = figures_dir / CACHE_DIR
+    png, svg = cache / f"{name}-{key}.png", cache / f"{name}-{key}.svg"
+    if not (png.is_file() and svg.is_file()):
+        draw_dir = cache / f".{name}-{key}.new"
+        _save(draw(), name, draw_dir)
+        for old in cache.glob(f"{name}-*.*"):  # one entry per figure: the last drawn
+            old.unlink(missing_ok=True)
+        for ext, target in (("png", png), ("svg", svg)):
+            (draw_dir / f"{name}.{ext}").replace(target)
+        draw_dir.rmdir()
+    figures_dir.mkdir(parents=True, exist_ok=True)
+    for ext, source in (("png", png), ("svg", svg)):
+        _atomic(figures_dir / f"{name}.{ext}", lambda tmp, source=source: Path(tmp).write_bytes(source.read_bytes()))
+    return "data:image/svg+xml;base64," + base64.b64encode(svg.read_bytes()).decode("ascii")
 
 
 def _rule_order(funnel: pd.DataFrame) -> list[str]:
@@ -250,7 +307,7 @@ def figure_funnel(funnel: pd.DataFrame):
     ax.set_yticks(y, summary["step"].str.replace("_", " "))
     for yi, (_, row) in zip(y, summary.iterrows()):
         text = f"{row['left']:,} left" + (f"   (−{row['removed']:,})" if row["removed"] else "")
-        ax.text(left[list(y).index(yi)] * 1.15, yi, text, va="center", fontsize=8, color=INK)
+        ax.text(left[list(y).index(yi)] * 1.15, yi, text, va="center", fontsize=8, color=INK, in_layout=False)
     ax.set_xlim(0.8, summary["left"].max() * 40)
     ax.set_xlabel("candidates left after the rule (log scale; all hosts)")
     ax.set_title("How the screen narrowed")
@@ -292,9 +349,11 @@ def figure_funnel_hosts(funnel: pd.DataFrame, limit: int = FUNNEL_HOSTS):
         for j in range(len(rules)):
             v = values[i, j]
             colour = "white" if v > 0 and math.log10(v) > 0.6 * math.log10(max(vmax, 10)) else INK
-            ax.text(j, i, f"{int(v):,}" if v > 0 else "·", ha="center", va="center", fontsize=6.5, color=colour)
+            # cell labels lie inside the axes: leaving them out of constrained layout halves its work
+            if v > 0:  # a blank (white) cell: the rule removed nothing there; one text fewer to draw
+                ax.text(j, i, f"{int(v):,}", ha="center", va="center", fontsize=6.5, color=colour, in_layout=False)
         ax.text(len(rules), i, f"{int(kept.iloc[i]):,}", ha="center", va="center", fontsize=7, color=TEAL,
-                fontweight="bold")
+                fontweight="bold", in_layout=False)
     ax.set_xlim(-0.5, len(rules) + 0.5)
     ax.set_xticks(range(len(rules) + 1), [r.replace("_", "\n") for r in rules] + ["kept"], fontsize=7)
     ax.set_yticks(range(len(hosts)), hosts, fontsize=7)
@@ -373,7 +432,10 @@ def figure_sth(shortlist: pd.DataFrame, labels: int = STH_LABELS):
                                                best=("rank", "min"), hosts=("host", lambda h: sorted(set(h))))
     gx = groups.index.to_numpy(float)
     gy = 100 * groups["sth"].to_numpy(float)
-    sizes = 16 + 9 * np.sqrt(groups["n"].to_numpy(float))
+    # area grows with the square root of the count, scaled to the largest group, so a 70,000-row
+    # screen draws bubbles no larger than a 2,000-row one (16 + 9 sqrt(n) for n up to ~350)
+    counts = groups["n"].to_numpy(float)
+    sizes = 16 + 9 * np.sqrt(counts * min(1.0, 350.0 / max(counts.max(initial=1.0), 1.0)))
     fig, (ax, zoom) = figs.subplots(1, 2, figsize=(10.5, 4.3), gridspec_kw={"width_ratios": [1, 1.25]})
     visible_edge = 1239.84 / 400  # 400 nm, the usual UV/visible boundary (common practice)
     for a in (ax, zoom):
@@ -413,12 +475,18 @@ def figure_sth(shortlist: pd.DataFrame, labels: int = STH_LABELS):
     if len(label_x):
         label_x -= max(0.0, (label_x[-1] - lgx[-1]) / 2)
     base = float(gy.max()) * 1.08 + 0.02 * y1 if len(gy) else 0
-    for (onset, row), lx, py in zip(lab.iterrows(), label_x, lgy):
+    # Leader lines as one LineCollection and labels as plain text: an annotation arrow per label
+    # cost more than the rest of the figure (each arrow is clipped against its text's box).
+    from matplotlib.collections import LineCollection
+
+    lift = 0.02 * y1  # the line stops just above its point
+    zoom.add_collection(LineCollection([[(ox, py + lift), (lx, base)] for ox, lx, py in zip(lgx, label_x, lgy)],
+                                       colors=MUTED, linewidths=0.4, zorder=2.5))
+    for (onset, row), lx in zip(lab.iterrows(), label_x):
         names = row["hosts"]
         label = ", ".join(names[:2]) + (f" +{len(names) - 2}" if len(names) > 2 else "")
-        zoom.annotate(f"{label} · {row['n']} · #{row['best']}", (onset, py), xytext=(lx, base),
-                      textcoords="data", fontsize=6, color=INK, ha="center", va="bottom", rotation=90,
-                      arrowprops={"arrowstyle": "-", "color": MUTED, "lw": 0.4, "shrinkA": 0, "shrinkB": 4})
+        zoom.text(lx, base, f"{label} · {row['n']} · #{row['best']}", fontsize=6, color=INK, ha="center",
+                  va="bottom", rotation=90)
     nm = zoom.secondary_xaxis("top", functions=(lambda e: 1239.84 / np.maximum(e, 1e-3),
                                                 lambda w: 1239.84 / np.maximum(w, 1e-3)))
     nm.set_xlabel("onset wavelength / nm", fontsize=8)
@@ -757,7 +825,7 @@ _JS = r"""
     table.setAttribute("data-rows-shown", String(shown.length));
     table.setAttribute("data-sorted-by", (state.dir < 0 ? "-" : "") + state.sort);
     document.getElementById("row-count").textContent = shown.length + " of " + embedded + " rows shown" +
-      (embedded < total ? " (the best " + embedded + " of " + total + " by rank; shortlist.csv has all)" : "");
+      (embedded < total ? " (the best " + embedded + " of " + total.toLocaleString("en") + " by rank; shortlist.csv has all)" : "");
     var ths = table.tHead.rows[0].cells;
     for (var j = 0; j < ths.length; j++) {
       ths[j].setAttribute("aria-sort", cols[j].key === state.sort ? (state.dir > 0 ? "ascending" : "descending") : "none");
@@ -812,10 +880,16 @@ def write_report(results_dir, ranked_file, shortlist_file, rejected_file, funnel
     results_dir = Path(results_dir)
     alignment = _check_alignment(alignment)
     table_limit = _check_table_rows(table_limit)
-    shortlist = _read(shortlist_file, lambda p: pd.read_csv(p, keep_default_na=False, na_values=[""]),
+    # Only the columns the page uses are read: on a 70,000-row screen the full tables were most
+    # of the stage's memory.
+    wanted = set(SHORTLIST_NEEDS) | {c[0] for c in TABLE_COLUMNS}
+    shortlist = _read(shortlist_file, lambda p: pd.read_csv(p, keep_default_na=False, na_values=[""],
+                                                            usecols=lambda c: c in wanted),
                       SHORTLIST_NEEDS, "shortlist")
-    ranked = _read(ranked_file, pd.read_parquet, RANKED_NEEDS, "ranked stage file")
-    rejected = _read(rejected_file, pd.read_parquet, ["host", "dopant", "rule", "scope"], "rejected candidates")
+    ranked = _read(ranked_file, lambda p: _read_parquet_columns(p, RANKED_NEEDS), RANKED_NEEDS, "ranked stage file")
+    rejected_needs = ["host", "dopant", "rule", "scope"]
+    rejected = _read(rejected_file, lambda p: _read_parquet_columns(p, rejected_needs), rejected_needs,
+                     "rejected candidates")
     funnel = _read(funnel_file, lambda p: pd.read_csv(p, keep_default_na=False), FUNNEL_NEEDS, "funnel")
     if len(funnel) == 0:
         raise ScreeningError("funnel has no rows", source=str(funnel_file))
@@ -827,8 +901,9 @@ def write_report(results_dir, ranked_file, shortlist_file, rejected_file, funnel
     name = title or results_dir.name
     figures_dir = Path(figures_dir)
 
-    funnel_uri = _save(figure_funnel(funnel), "funnel", figures_dir)
-    hosts_uri = _save(figure_funnel_hosts(funnel), "funnel_hosts", figures_dir)
+    funnel_uri = _cached("funnel", _funnel_key("funnel", funnel), lambda: figure_funnel(funnel), figures_dir)
+    hosts_uri = _cached("funnel_hosts", _funnel_key("funnel_hosts", funnel), lambda: figure_funnel_hosts(funnel),
+                        figures_dir)
     alignment_uri = _save(figure_alignment(shortlist, alignment, top), "alignment", figures_dir)
     sth_uri = _save(figure_sth(shortlist), "sth", figures_dir)
     scarcity_uri = _save(figure_scarcity(ranked, scarcity), "scarcity", figures_dir)
@@ -869,7 +944,7 @@ def write_report(results_dir, ranked_file, shortlist_file, rejected_file, funnel
 {_figure(funnel_uri, "funnel", "bar chart of candidates left after each rule",
          "Candidates left after each rule, in the order the rules run, summed over hosts. Single-ion rules count the pairs a removed ion would have formed.")}
 {_figure(hosts_uri, "funnel_hosts", "heat map of candidates removed per host and rule",
-         "Candidates removed by each rule for each host; the last column is what the host keeps on the shortlist."
+         "Candidates removed by each rule for each host (blank: none); the last column is what the host keeps on the shortlist."
          + ("" if grid_hosts == n_hosts else
             f" Drawn: the {grid_hosts} of {n_hosts:,} hosts keeping most candidates; the table below lists every host."))}
 </div>

@@ -7,6 +7,7 @@ of Snakemake's ~25 s; tests/test_progress.py runs the real workflow once.
 from __future__ import annotations
 
 import hashlib
+import json
 import os
 import re
 import shutil
@@ -174,6 +175,92 @@ def test_missing_column_and_bad_ph_are_named(screen, tmp_path):
         write_page(rules, out, alignment=bad, out_html=tmp_path / "r.html")
 
 
+# --- a large shortlist: the table is bounded -------------------------------------------------
+
+def _payload(text: str) -> dict:
+    match = re.search(r'<script type="application/json" id="shortlist-data">(.*?)</script>', text, re.S)
+    assert match, "the table's data block is missing"
+    return json.loads(match.group(1).replace("<\\/", "</"))
+
+
+def synthetic_shortlist(real: pd.DataFrame, n: int) -> pd.DataFrame:
+    """SYNTHETIC, for size only: ``n`` rows made by repeating the rows of a real shortlist, each
+    copy's candidate_id suffixed ``~synthK`` (copy 0 keeps the real ids, so the ranked file still
+    matches), then ranks 1..n dealt in reverse file order so that picking the best means sorting."""
+    copies = -(-n // len(real))
+    frames = [real.assign(candidate_id=real["candidate_id"] + (f"~synth{k}" if k else "")) for k in range(copies)]
+    big = pd.concat(frames, ignore_index=True).head(n)
+    big["rank"] = range(n, 0, -1)
+    return big
+
+
+def test_large_shortlist_embeds_a_bounded_table(screen, tmp_path):
+    rules, out, _ = screen
+    real = pd.read_csv(out / "shortlist.csv")
+    big = synthetic_shortlist(real, 20_000)
+    big.to_csv(tmp_path / "shortlist.csv", index=False)
+    page = write_page(rules, out, shortlist_file=tmp_path / "shortlist.csv", out_html=tmp_path / "report.html",
+                      figures_dir=tmp_path / "figures")
+    text = page.read_text(encoding="utf-8")
+    data = _payload(text)
+    keys = [c["key"] for c in data["columns"]]
+    limit = report.TABLE_ROWS
+    assert 0 < limit < len(big)
+    assert len(data["rows"]) == limit
+    # pandas is the reference for "the best by rank": the limit smallest ranks, in rank order
+    expected = big.nsmallest(limit, "rank")
+    assert [r[keys.index("rank")] for r in data["rows"]] == expected["rank"].tolist()
+    assert [r[keys.index("candidate_id")] for r in data["rows"]] == expected["candidate_id"].tolist()
+    assert f"Showing the best {limit:,} of {len(big):,} shortlisted candidates" in text
+    assert f"holds all {len(big):,}" in text
+    assert f'data-rows-total="{len(big)}" data-rows-embedded="{limit}"' in text
+    # the page does not grow with the shortlist: 20,000 rows would be several MB of JSON alone
+    assert len(text.encode("utf-8")) < 1_500_000
+
+
+def test_small_shortlist_is_shown_whole(screen):
+    _, out, page = screen
+    text = page.read_text(encoding="utf-8")
+    n = len(pd.read_csv(out / "shortlist.csv"))
+    assert n <= report.TABLE_ROWS
+    assert len(_payload(text)["rows"]) == n
+    assert f"Showing all {n:,} shortlisted candidates" in text
+
+
+@pytest.mark.parametrize("bad", [0, -3, 2.5, True, "500", 100_001])
+def test_table_limit_must_be_a_positive_whole_number(screen, tmp_path, bad):
+    rules, out, _ = screen
+    with pytest.raises(ScreeningError, match="field 'table_rows'.*1 to 100000"):
+        write_page(rules, out, out_html=tmp_path / "r.html", table_limit=bad)
+    assert not (tmp_path / "r.html").exists()
+
+
+def test_cached_funnel_figure_is_the_figure_a_fresh_draw_gives(screen, tmp_path):
+    _, out, _ = screen
+    funnel = pd.read_csv(out / "funnel.csv", keep_default_na=False)
+    figures = tmp_path / "figures"
+    draws = []
+
+    def draw(frame):
+        draws.append(1)
+        return report.figure_funnel(frame)
+
+    key = report._funnel_key("funnel", funnel)
+    first = report._cached("funnel", key, lambda: draw(funnel), figures)
+    png = (figures / "funnel.png").read_bytes()
+    again = report._cached("funnel", key, lambda: draw(funnel), figures)
+    assert len(draws) == 1 and again == first  # second call: from the cache, not drawn
+    shutil.rmtree(figures / report.CACHE_DIR)
+    fresh = report._cached("funnel", key, lambda: draw(funnel), figures)
+    assert len(draws) == 2
+    assert fresh == first and (figures / "funnel.png").read_bytes() == png  # drawing is deterministic
+    # a different funnel is a different key, drawn anew; the cache keeps one entry per figure
+    fewer = funnel[funnel["host"] != funnel["host"].iloc[0]]
+    other = report._cached("funnel", report._funnel_key("funnel", fewer), lambda: draw(fewer), figures)
+    assert len(draws) == 3 and other != first
+    assert len(list((figures / report.CACHE_DIR).glob("funnel-*.svg"))) == 1
+
+
 # --- in a real browser ---------------------------------------------------------------------
 
 def _chromium() -> str | None:
@@ -216,7 +303,7 @@ def test_table_renders_and_sorts_in_chromium(browser, screen, tmp_path):
 
     dom = _headless(browser, tmp_path, "--dump-dom", url).stdout
     ranks = _rows(dom)
-    assert len(ranks) == len(shortlist) > 1
+    assert len(ranks) == min(len(shortlist), report.TABLE_ROWS) > 1
     assert ranks == sorted(ranks)  # opens in rank order
 
     dom = _headless(browser, tmp_path, "--dump-dom", url + "#sort=cost_usd_per_kg").stdout
@@ -236,3 +323,21 @@ def test_table_renders_and_sorts_in_chromium(browser, screen, tmp_path):
     shot.unlink(missing_ok=True)
     _headless(browser, tmp_path, f"--screenshot={shot}", "--window-size=1400,3800", url + "#sort=-sth_limit")
     assert shot.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+def test_bounded_table_sorts_only_its_rows_in_chromium(browser, screen, tmp_path):
+    """A page whose table holds fewer rows than the shortlist (limit 10 of the small screen's rows):
+    the browser shows exactly the best 10 by rank, sorts within them, and says 10 of how many."""
+    rules, out, _ = screen
+    shortlist = pd.read_csv(out / "shortlist.csv")
+    limit = 10
+    assert len(shortlist) > limit
+    page = write_page(rules, out, out_html=tmp_path / "bounded.html", figures_dir=tmp_path / "figures",
+                      table_limit=limit)
+    url = page.resolve().as_uri()
+    best = shortlist.nsmallest(limit, "rank")
+    dom = _headless(browser, tmp_path, "--dump-dom", url + "#sort=cost_usd_per_kg").stdout
+    # pandas is the reference: the best 10 by rank, then a stable sort by cost with ties in rank order
+    assert _rows(dom) == best.sort_values(["cost_usd_per_kg", "rank"], kind="stable")["rank"].tolist()
+    count = re.search(r'<span id="row-count">([^<]*)</span>', dom).group(1)
+    assert count.startswith(f"{limit} of {limit} rows shown") and f"of {len(shortlist)} by rank" in count
