@@ -49,6 +49,7 @@ from __future__ import annotations
 import hashlib
 import json
 import os
+import threading
 from dataclasses import asdict, dataclass
 from functools import lru_cache
 from importlib import metadata
@@ -271,7 +272,7 @@ def load_calibration() -> Calibration:
             return calibration
     calibration = fit_calibration()
     path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.with_suffix(f".tmp{os.getpid()}")
+    tmp = path.with_suffix(f".tmp{os.getpid()}-{threading.get_ident()}")
     tmp.write_text(json.dumps(asdict(calibration)))
     os.replace(tmp, path)
     return calibration

@@ -29,6 +29,7 @@ from __future__ import annotations
 
 import json
 import os
+import threading
 import re
 from dataclasses import dataclass
 from functools import lru_cache
@@ -180,7 +181,7 @@ def build_ion_data() -> IonData:
 
 
 def _write_atomic(frame: pd.DataFrame, path: Path) -> None:
-    tmp = path.with_suffix(path.suffix + f".tmp{os.getpid()}")
+    tmp = path.with_suffix(path.suffix + f".tmp{os.getpid()}-{threading.get_ident()}")
     frame.to_parquet(tmp, index=False)
     os.replace(tmp, path)
 
@@ -198,7 +199,7 @@ def load_ion_data() -> IonData:
     directory.mkdir(parents=True, exist_ok=True)
     for name in ("elements", "states", "radii"):
         _write_atomic(getattr(data, name), paths[name])
-    tmp = paths["stamp"].with_suffix(f".tmp{os.getpid()}")
+    tmp = paths["stamp"].with_suffix(f".tmp{os.getpid()}-{threading.get_ident()}")
     tmp.write_text(json.dumps({"version": version}))
     os.replace(tmp, paths["stamp"])
     return data

@@ -65,7 +65,7 @@ def stage_log(path, stage: str):
 def _atomic(path: Path, write) -> None:
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.with_name(f".{path.name}.tmp{os.getpid()}")
+    tmp = path.with_name(f".{path.name}.tmp{os.getpid()}-{threading.get_ident()}")
     write(tmp)
     os.replace(tmp, path)
 

@@ -162,8 +162,12 @@ def run_workflow(command: list[str], out: Path, *, after_s: float | None = DEFAU
     tty = hasattr(stream, "isatty") and stream.isatty()
     shown, last = False, ""
     try:
-        while process.poll() is None:
-            time.sleep(POLL_S)
+        while True:
+            try:
+                process.wait(timeout=POLL_S)  # returns at once when the workflow ends
+                break
+            except subprocess.TimeoutExpired:
+                pass
             elapsed = time.time() - start
             if after_s is None or elapsed < after_s:
                 continue

@@ -246,3 +246,37 @@ def test_bad_reference_rows_are_named(column, value, message):
 def test_missing_reference_column_is_named():
     with pytest.raises(ScreeningError, match="conversion"):
         calibration.fit_calibration(REFERENCE.drop(columns="conversion"))
+
+
+def test_concurrent_first_use_of_the_cache_is_safe(tmp_path, monkeypatch):
+    # Local runs execute stages in threads of one process; two shards may fit and write the
+    # calibration cache at the same time. Once, both wrote the same temporary file and one
+    # rename failed (FileNotFoundError); the temporary name now carries the thread too.
+    import threading
+
+    from screening import calibration, ions
+
+    monkeypatch.setenv("SCREENING_CACHE_DIR", str(tmp_path))
+    calibration.load_calibration.cache_clear()
+    errors, results = [], []
+    barrier = threading.Barrier(4)
+
+    def first_use():
+        try:
+            barrier.wait()
+            results.append(calibration.load_calibration.__wrapped__())
+        except Exception as exc:  # collected and asserted below
+            errors.append(exc)
+
+    threads = [threading.Thread(target=first_use) for _ in range(4)]
+    try:
+        for t in threads:
+            t.start()
+        for t in threads:
+            t.join()
+    finally:
+        calibration.load_calibration.cache_clear()
+    assert errors == []
+    assert len({(r.slope, r.intercept) for r in results}) == 1
+    assert list((tmp_path / "calibration").glob("*.tmp*")) == []
+    assert ions.cache_dir() == tmp_path
