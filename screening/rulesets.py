@@ -218,7 +218,8 @@ def _doc_range(sub: dict) -> str:
     elif "boolean" in types:
         text = "true / false"
     elif "array" in types:
-        text = "list of " + sub.get("items", {}).get("type", "values") + "s"
+        item_type = sub.get("items", {}).get("type")
+        text = f"list of {item_type}s" if item_type else "list of values"
     elif "string" in types:
         text = "text" + (f" matching `{sub['pattern']}`" if "pattern" in sub else "")
     else:
