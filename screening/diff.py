@@ -94,14 +94,9 @@ def _library_from_stages(folder: Path) -> dict | None:
 # --- provenance ------------------------------------------------------------------------------
 
 def _flatten(record: dict) -> dict:
-    flat = {}
-    stack = [((), record)]
-    while stack:
-        path, value = stack.pop()
-        if isinstance(value, dict) and value:
-            stack.extend(((*path, k), v) for k, v in value.items())
-        else:
-            flat[".".join(path)] = value
+    from screening.rulesets import flatten
+
+    flat = flatten(record)
     # the criteria list the text key by key; the hash says whether the text changed at all
     return {k: v for k, v in flat.items() if k != "ruleset.text" and k not in provenance.VOLATILE}
 

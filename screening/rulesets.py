@@ -264,18 +264,22 @@ def update_readme(path: Path) -> None:
     Path(path).write_text(text[:start + len(README_START)] + "\n" + schema_table() + text[end:], encoding="utf-8")
 
 
+def flatten(record: dict) -> dict[str, object]:
+    """Nested mappings as 'key.subkey.leaf' -> value (empty mappings are leaves)."""
+    flat = {}
+    stack = [((), record)]
+    while stack:
+        path, value = stack.pop()
+        if isinstance(value, dict) and value:
+            stack.extend(((*path, str(k)), v) for k, v in value.items())
+        else:
+            flat[".".join(path)] = value
+    return flat
+
+
 def flat_sections(sections: dict) -> dict[str, object]:
     """Every criterion as 'section.key.subkey' -> value (for diffs and provenance)."""
-    flat = {}
-    for name, node in sections.items():
-        stack = [((name,), node)]
-        while stack:
-            path, value = stack.pop()
-            if isinstance(value, dict) and value:
-                stack.extend(((*path, k), v) for k, v in value.items())
-            else:
-                flat[".".join(path)] = value
-    return dict(sorted(flat.items()))
+    return dict(sorted(flatten(sections).items()))
 
 
 def load_ruleset(path: str | Path) -> RuleSet:
