@@ -19,8 +19,8 @@ By default only the electrochemical (``flatband``) rows are fitted.  The calibra
 with the water redox levels in an electrolyte, and a photoemission energy measured in vacuum lacks the
 dipole of the oxide/water interface: for the shipped table the MoO3 film (electron affinity 6.7 eV) lies
 about 2 V below every electrochemical estimate and, with SiO2 far out on the raw axis, the line fitted on
-all rows predicts worse under leave-one-out (RMSE 1.03 V) than the raw estimate does with no fit at all
-(0.78 V).  The photoemission rows stay in the table and ``fit_calibration(edge_kinds=EDGE_KINDS)`` fits them
+all 14 rows predicts worse under leave-one-out (RMSE 0.89 V) than the raw estimate does with no fit at all
+(0.67 V), so that fit falls back to the identity.  The photoemission rows stay in the table and ``fit_calibration(edge_kinds=EDGE_KINDS)`` fits them
 too.
 
 Choice of regressor
@@ -30,13 +30,13 @@ squares line: if any residual of the least-squares fit lies more than 3 robust s
 (1.4826 x median absolute deviation of the residuals) from the median residual, ``HuberRegressor`` (Huber
 loss, no L2 penalty) is used instead, because a squared loss lets one or two such points set the slope.
 Outliers are only judged from 8 rows up: with fewer, a two-parameter line leaves so few residuals that
-their median absolute deviation is no estimate of the scatter (on the 5 flat-band rows it is 0.04 V against
-a leave-one-out error of 0.18 V, and would brand 2 of the 5 rows outliers).  Then the fitted line must
+their median absolute deviation is no estimate of the scatter (with the 5 flat-band rows shipped earlier
+it was 0.04 V against a leave-one-out error of 0.18 V, and would have branded 2 of the 5 rows outliers).  Then the fitted line must
 earn its place: if its leave-one-out RMSE is not below the RMSE of the raw estimate itself (slope 1, intercept 0, nothing fitted), the calibration is the identity, with the raw RMSE
 as sigma, and ``model`` says so.  The rules are applied to whatever table is shipped; the
 :class:`Calibration` records the model and the reason with the numbers.  With the table shipped now the
-flat-band rows are 5 (mostly from memory), too few to judge outliers, so the fit is least squares: slope
-0.38, intercept +0.09 V, leave-one-out RMSE 0.18 V (0.35 V uncalibrated).  Five points spanning raw CBMs
+flat-band rows are 6 (mostly from memory), too few to judge outliers, so the fit is least squares: slope
+0.45, intercept +0.02 V, leave-one-out RMSE 0.29 V (0.33 V uncalibrated).  Six points spanning raw CBMs
 from -0.8 to +0.7 V are a small basis: the sigma is a rough figure, and a slope this far below 1 pulls
 hosts outside that range (wide-gap ZrO2, Ta2O5, sulfides) strongly toward the middle, an extrapolation the
 data do not support.

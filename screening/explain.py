@@ -202,19 +202,32 @@ def rule_checks(row, sections: dict, site_radii: dict) -> list[dict]:
         checks.append(_check(rule, column, value, _float(limit_value),
                              None if limit_value is None or value is None else float(limit_value) - value, unit,
                              note="" if limit_value is not None else "no ceiling set in the rule set"))
+    # the alignment rule as the rank stage applies it: the calibrated CBM (unless switched off),
+    # the highest occupied level (dopant level or VBM) and the probability of clearing both margins
     ph = float(alignment["ph"])
     shift = -bands.NERNST_SLOPE_V * ph
-    cbm, vbm = float(row["cbm_v_nhe_ph0"]) + shift, float(row["vbm_v_nhe_ph0"]) + shift
-    her, oer = bands.alignment_margins(cbm, vbm, ph, alignment["her_overpotential_v"], alignment["oer_overpotential_v"])
+    calibrated = bool(alignment.get("calibrated_edges", False)) and "cbm_cal_v_nhe_ph0" in row
+    cbm = float(row["cbm_cal_v_nhe_ph0" if calibrated else "cbm_v_nhe_ph0"]) + shift
+    occupied = cbm + float(row["onset_ev"])
+    her, oer = bands.alignment_margins(cbm, occupied, ph, alignment["her_overpotential_v"],
+                                       alignment["oer_overpotential_v"])
     hydrogen, oxygen = bands.water_levels(ph)
     mode = alignment["mode"]
     needed = {"overall": ("her", "oer"), "hydrogen": ("her",), "oxygen": ("oer",)}[mode]
-    checks.append(_check("alignment", f"CBM vs H+/H2 - {alignment['her_overpotential_v']:g} V at pH {ph:g}", cbm,
-                         hydrogen - alignment["her_overpotential_v"], float(her), "V vs NHE",
-                         note="counts" if "her" in needed else f"not needed in mode {mode}"))
-    checks.append(_check("alignment", f"VBM vs O2/H2O + {alignment['oer_overpotential_v']:g} V at pH {ph:g}", vbm,
-                         oxygen + alignment["oer_overpotential_v"], float(oer), "V vs NHE",
-                         note="counts" if "oer" in needed else f"not needed in mode {mode}"))
+    edge = "calibrated CBM" if calibrated else "CBM (raw Butler–Ginley)"
+    checks.append(_check("alignment", f"{edge} vs H+/H2 - {alignment['her_overpotential_v']:g} V at pH {ph:g}",
+                         cbm, hydrogen - alignment["her_overpotential_v"], float(her), "V vs NHE",
+                         note="enters the probability" if "her" in needed else f"not needed in mode {mode}"))
+    checks.append(_check("alignment", f"highest occupied level vs O2/H2O + {alignment['oer_overpotential_v']:g} V "
+                         f"at pH {ph:g}", occupied, oxygen + alignment["oer_overpotential_v"], float(oer),
+                         "V vs NHE", note="enters the probability" if "oer" in needed
+                         else f"not needed in mode {mode}"))
+    if "alignment_probability" in row and "min_probability" in alignment:
+        probability = float(row["alignment_probability"])
+        floor = float(alignment["min_probability"])
+        checks.append(_check("alignment", f"probability of clearing the margins (mode {mode})", probability,
+                             floor, probability - floor, "",
+                             note="the rule" if alignment.get("required", True) else "ranks only (not required)"))
     return checks
 
 
@@ -247,7 +260,9 @@ def score_parts(row, weights: dict) -> list[dict]:
     return parts
 
 
-_TERM_INPUT = {"sth": (("sth_limit",), "STH limit / 0.179"),
+_TERM_INPUT = {"sth": (("expected_sth", "sth_limit", "alignment_probability"),
+                       "expected STH (STH limit x alignment probability) / 0.179"),
+               "ingap": (("ingap_risk",), "0 / -0.5 / -1 for in-gap risk low / medium / high"),
                "alignment": (("alignment_margin_v",), "clip(margin / 0.5 V, -1, 1)"),
                "cost": (("cost_usd_per_kg",), "-log10(cost) / 4"),
                "abundance": (("scarcest_abundance_ppm",), "log10(scarcest ppm) / 6"),
@@ -285,7 +300,8 @@ def explain(candidate: str, results: Path, rules_path: Path | None = None) -> di
     total = sum(p["contribution"] for p in parts)
     for p in parts:
         columns, formula = _TERM_INPUT.get(p["term"], ((), "see README, Methods"))
-        p["input"] = {c: _float(row[c]) for c in columns if c in row and _float(row[c]) is not None}
+        p["input"] = {c: (row[c] if isinstance(row[c], str) else _float(row[c])) for c in columns
+                      if c in row and (isinstance(row[c], str) or _float(row[c]) is not None)}
         p["formula"] = formula
     checks = rule_checks(row, rules.sections, site_radii)
     return {
