@@ -48,8 +48,6 @@ from __future__ import annotations
 
 import hashlib
 import json
-import os
-import threading
 from dataclasses import asdict, dataclass
 from functools import lru_cache
 from importlib import metadata
@@ -60,6 +58,7 @@ import pandas as pd
 
 from screening import bands, formulas, ions
 from screening.errors import ScreeningError
+from screening.files import atomic_write
 
 REFERENCE_FILE = Path(__file__).with_name("data") / "band_edge_reference.csv"
 REQUIRED_COLUMNS = ["formula", "gap_ev", "edge_kind", "edge", "edge_v_nhe_ph0", "conversion",
@@ -271,10 +270,7 @@ def load_calibration() -> Calibration:
         if calibration is not None and calibration.data_version == data_version():
             return calibration
     calibration = fit_calibration()
-    path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.with_suffix(f".tmp{os.getpid()}-{threading.get_ident()}")
-    tmp.write_text(json.dumps(asdict(calibration)))
-    os.replace(tmp, path)
+    atomic_write(path, lambda tmp: tmp.write_text(json.dumps(asdict(calibration))))
     return calibration
 
 

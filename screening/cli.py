@@ -122,7 +122,6 @@ def cmd_edges(args) -> int:
 
 def cmd_run(args) -> int:
     import shlex
-    import subprocess
 
     from screening import pools, rulesets, structures
 

@@ -121,19 +121,24 @@ def _ion_labels(elements: pd.Series, charges: pd.Series) -> pd.Series:
     return elements.astype(str) + magnitude + sign
 
 
+_MAX_MARKS = 16
+# marks[d + _MAX_MARKS] is the Kröger–Vink mark of effective charge d: a table look-up, not a loop
+_MARKS = np.array(["′" * -d if d < 0 else ("•" * d if d > 0 else "×") for d in range(-_MAX_MARKS, _MAX_MARKS + 1)],
+                  dtype=object)
+
+
 def _charge_marks(delta: pd.Series) -> pd.Series:
-    marks = pd.Series("×", index=delta.index, dtype=object)
-    marks[delta > 0] = delta[delta > 0].map(lambda d: "•" * d)
-    marks[delta < 0] = delta[delta < 0].map(lambda d: "′" * -d)
-    return marks.astype(str)
+    return pd.Series(_MARKS[delta.to_numpy(np.int64) + _MAX_MARKS], index=delta.index, dtype=object)
 
 
 def _kv(element: pd.Series, site: pd.Series, delta: pd.Series) -> pd.Series:
     return element.astype(str) + "_" + site.astype(str) + _charge_marks(delta)
 
 
-def _coefficient(n: pd.Series) -> pd.Series:
-    return n.astype(str).where(n != 1, "").str.cat(pd.Series(np.where(n != 1, " ", ""), index=n.index))
+def _coefficient(n) -> pd.Series:
+    """'' for one, 'n ' otherwise: the count written before a defect."""
+    n = pd.Series(n) if not isinstance(n, pd.Series) else n
+    return (n.astype(str) + " ").where(n != 1, "")
 
 
 _PLACEMENT_COLUMNS = ["host", "site", "site_element", "site_charge", "coordination", "multiplicity",
@@ -241,27 +246,18 @@ def _finish(c: pd.DataFrame, x: Fraction) -> pd.DataFrame:
     c["ratio"] = np.where(pair, c["n_dopant"].astype(str) + ":" + c["n_codopant"].astype(str), "")
     c["max_ratio_count"] = np.maximum(c["n_dopant"], c["n_codopant"])
 
-    dopant_defect = _coefficient(c["n_dopant"]) + _kv(c["dopant_element"], c["dopant_site"], c["dopant_delta"])
-    codopant_defect = _coefficient(c["n_codopant"]) + _kv(c["codopant_element"], c["codopant_site"],
-                                                          c["codopant_delta"])
-    n_vac = (-c["dopant_delta"]).where(vacancy, 0)
-    # 2 acceptors of charge -1 per vacancy: write the balanced smallest set
-    vac_text = pd.Series(np.where(vacancy, "", ""), index=c.index)
-    single_acc = vacancy
-    g = np.gcd(np.where(single_acc, -c["dopant_delta"].to_numpy(), 1), 2)
-    n_acc_v = np.where(single_acc, 2 // g, 1)
-    n_vo = np.where(single_acc, -c["dopant_delta"].to_numpy() // g, 0)
-    vac_text = np.where(single_acc,
-                        pd.Series(n_acc_v, index=c.index).map(lambda n: f"{n} " if n != 1 else "")
-                        + _kv(c["dopant_element"], c["dopant_site"], c["dopant_delta"])
-                        + " + " + pd.Series(n_vo, index=c.index).map(lambda n: f"{n} " if n != 1 else "")
-                        + "V_O••", "")
-    c["defects"] = np.where(pair, dopant_defect + " + " + codopant_defect,
-                            np.where(single_acc, vac_text,
-                                     _kv(c["dopant_element"], c["dopant_site"], c["dopant_delta"])
-                                     + np.where(c["compensation"].eq("electrons"),
-                                                " + " + c["dopant_delta"].astype(str) + " e′", "")))
-    del n_vac
+    dopant_kv = _kv(c["dopant_element"], c["dopant_site"], c["dopant_delta"])
+    codopant_kv = _kv(c["codopant_element"], c["codopant_site"], c["codopant_delta"])
+    # an acceptor of |delta| = a with vacancies: the smallest neutral set is (2/g) M + (a/g) V_O, g = gcd(a, 2)
+    a = np.where(vacancy, -c["dopant_delta"].to_numpy(np.int64), 1)
+    g = np.gcd(a, 2)
+    with_vacancies = (_coefficient(pd.Series(2 // g, index=c.index)) + dopant_kv + " + "
+                      + _coefficient(pd.Series(a // g, index=c.index)) + "V_O••")
+    with_electrons = dopant_kv + " + " + c["dopant_delta"].astype(str) + " e′"
+    c["defects"] = np.select(
+        [pair.to_numpy(), vacancy, c["compensation"].eq("electrons").to_numpy()],
+        [_coefficient(c["n_dopant"]) + dopant_kv + " + " + _coefficient(c["n_codopant"]) + codopant_kv,
+         with_vacancies, with_electrons], default=dopant_kv)
     c["candidate_id"] = (c["host"] + "/" + c["dopant_ion"] + "@" + c["dopant_site"]
                          + np.where(pair, "+" + c["codopant_ion"] + "@" + c["codopant_site"],
                                     np.where(vacancy, "+V_O", "")))

@@ -29,7 +29,6 @@ from __future__ import annotations
 
 import json
 import os
-import threading
 import re
 from dataclasses import dataclass
 from functools import lru_cache
@@ -40,6 +39,7 @@ import numpy as np
 import pandas as pd
 
 from screening.errors import DataMissingError, ScreeningError
+from screening.files import atomic_write
 
 TABLE_VERSION = "1"
 _DATA_DIR = Path(__file__).with_name("data")
@@ -180,12 +180,6 @@ def build_ion_data() -> IonData:
     return IonData(elements, _build_states(symbols), _build_radii(symbols), data_version())
 
 
-def _write_atomic(frame: pd.DataFrame, path: Path) -> None:
-    tmp = path.with_suffix(path.suffix + f".tmp{os.getpid()}-{threading.get_ident()}")
-    frame.to_parquet(tmp, index=False)
-    os.replace(tmp, path)
-
-
 @lru_cache(maxsize=1)
 def load_ion_data() -> IonData:
     """The ion tables, from the on-disk cache when its stamp matches, else built and cached."""
@@ -196,12 +190,10 @@ def load_ion_data() -> IonData:
         elements = pd.read_parquet(paths["elements"]).set_index("symbol", drop=False)
         return IonData(elements, pd.read_parquet(paths["states"]), pd.read_parquet(paths["radii"]), version)
     data = build_ion_data()
-    directory.mkdir(parents=True, exist_ok=True)
     for name in ("elements", "states", "radii"):
-        _write_atomic(getattr(data, name), paths[name])
-    tmp = paths["stamp"].with_suffix(f".tmp{os.getpid()}-{threading.get_ident()}")
-    tmp.write_text(json.dumps({"version": version}))
-    os.replace(tmp, paths["stamp"])
+        atomic_write(paths[name], lambda tmp, frame=getattr(data, name): frame.to_parquet(tmp, index=False))
+    # the stamp last: a cache without it is rebuilt
+    atomic_write(paths["stamp"], lambda tmp: tmp.write_text(json.dumps({"version": version})))
     return data
 
 

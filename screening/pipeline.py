@@ -16,7 +16,6 @@ from __future__ import annotations
 import contextlib
 import json
 import logging
-import os
 import threading
 import time
 from fractions import Fraction
@@ -25,9 +24,10 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from screening import bands, enumerate as enum, hosts as hostlib, ions, pools, solar
+from screening import bands, enumerate as enum, hosts as hostlib, pools, solar
 from screening.filters import charge_balance, empty_rejected, oxidation_state, radius_mismatch
 from screening.filters import scarcity as scarcity_rules
+from screening.files import atomic_write
 
 FUNNEL_COLUMNS = ["host", "rule", "enumerated", "candidates_in", "candidates_out", "removed"]
 log = logging.getLogger("screening")
@@ -62,24 +62,16 @@ def stage_log(path, stage: str):
         handler.close()
 
 
-def _atomic(path: Path, write) -> None:
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.with_name(f".{path.name}.tmp{os.getpid()}-{threading.get_ident()}")
-    write(tmp)
-    os.replace(tmp, path)
-
-
 def write_parquet(frame: pd.DataFrame, path) -> None:
-    _atomic(path, lambda tmp: frame.to_parquet(tmp, index=False))
+    atomic_write(path, lambda tmp: frame.to_parquet(tmp, index=False))
 
 
 def write_csv(frame: pd.DataFrame, path) -> None:
-    _atomic(path, lambda tmp: frame.to_csv(tmp, index=False, lineterminator="\n", float_format="%.6g"))
+    atomic_write(path, lambda tmp: frame.to_csv(tmp, index=False, lineterminator="\n", float_format="%.6g"))
 
 
 def write_json(document, path) -> None:
-    _atomic(path, lambda tmp: Path(tmp).write_text(json.dumps(document, indent=2, sort_keys=True) + "\n"))
+    atomic_write(path, lambda tmp: Path(tmp).write_text(json.dumps(document, indent=2, sort_keys=True) + "\n"))
 
 
 # --- stage 1: hosts ----------------------------------------------------------------------
@@ -407,7 +399,7 @@ def _stream_rejected(rejected_files, rejected_out) -> None:
                 frame = frame.sort_values(sort_keys, kind="stable")
                 writer.write_table(pa.Table.from_pandas(frame, schema=schema, preserve_index=False))
 
-    _atomic(rejected_out, write)
+    atomic_write(rejected_out, write)
 
 
 FUNNEL_ORDER = ["structure", "oxidation_state", "radius_mismatch", "radioactive", "abundance", "charge_balance",

@@ -83,8 +83,8 @@ def candidates_processed(logs: Path, since: float) -> dict:
             text = path.read_text(encoding="utf-8", errors="replace")
         except OSError:  # a log being rewritten by a restarted job: count it next poll
             continue
-        # Stages run as threads of one process share a logger, so one shard's log can hold another's
-        # line: count each shard once, by its number.
+        # Count each shard once, by its number: a rerun of a shard rewrites its log, and counting
+        # lines rather than shards would count it twice.
         for m in _SHARD.finditer(text):
             per_shard[int(m[1])] = (int(m[3]), int(m[4]))
     shards = len(per_shard)

@@ -258,7 +258,7 @@ def _cached(name: str, key: str, draw, figures_dir: Path) -> str:
     funnel figures were a third of the stage's time.  Same inputs give the same bytes (SVG
     ids salted, no dates), so a cached figure is the figure a fresh draw would give.
     """
-    from screening.pipeline import _atomic
+    from screening.files import atomic_write as _atomic
 
     cache = figures_dir / CACHE_DIR
     png, svg = cache / f"{name}-{key}.png", cache / f"{name}-{key}.svg"
@@ -875,7 +875,7 @@ def write_report(results_dir, ranked_file, shortlist_file, rejected_file, funnel
     ``provenance_file`` may be None or a path that does not exist: the page then
     says that the record is absent.
     """
-    from screening.pipeline import _atomic
+    from screening.files import atomic_write as _atomic
 
     results_dir = Path(results_dir)
     alignment = _check_alignment(alignment)

@@ -26,8 +26,6 @@ from fractions import Fraction
 from functools import lru_cache
 from pathlib import Path
 
-import yaml
-
 from screening.errors import ScreeningError
 from screening.hosts import read_yaml
 
@@ -49,6 +47,8 @@ class RuleSet:
     pool_path: Path
     sections: dict
     text: str
+    structures_path: Path | None = None
+    """The rule set's ``structures`` (a CIF file or folder), resolved and checked; None when it has none."""
 
     @property
     def sha256(self) -> str:
@@ -299,9 +299,16 @@ def load_ruleset(path: str | Path) -> RuleSet:
     for key, target in (("hosts", hosts_path), ("dopant_pool", pool_path)):
         if not target.is_file():
             raise ScreeningError(f"names {filled[key]!r}, which is not a file ({target})", source=source, field=key)
+    structures_path = None
+    if filled.get("structures") is not None:
+        structures_path = (base / filled["structures"]).resolve()
+        if not structures_path.exists():
+            raise ScreeningError(f"names {filled['structures']!r}, which is neither a file nor a folder "
+                                 f"({structures_path})", source=source, field="structures")
     return RuleSet(path=path.resolve(), name=filled["name"], description=filled.get("description", ""),
                    hosts_path=hosts_path, pool_path=pool_path,
-                   sections={name: filled[name] for name in SECTIONS}, text=text)
+                   sections={name: filled[name] for name in SECTIONS}, text=text,
+                   structures_path=structures_path)
 
 
 if __name__ == "__main__":

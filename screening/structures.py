@@ -292,16 +292,8 @@ def load_structures(path: str | Path) -> tuple[list[Host], list[dict]]:
 
 
 def structures_path(rules) -> Path | None:
-    """The rule set's ``structures`` path (relative to the rule-set file), or None when it has none."""
-    document = yaml.safe_load(rules.text) or {}
-    value = document.get("structures")
-    if value is None:
-        return None
-    target = (Path(rules.path).parent / value).resolve()
-    if not target.exists():
-        raise ScreeningError(f"names {value!r}, which is neither a file nor a folder ({target})",
-                             source=str(rules.path), field="structures")
-    return target
+    """The rule set's ``structures`` path (resolved and checked by rulesets.load_ruleset), or None."""
+    return rules.structures_path
 
 
 def combined_hosts(hosts_file, structures: str | Path | None) -> tuple[list[Host], list[dict]]:

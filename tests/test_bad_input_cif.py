@@ -1,5 +1,7 @@
 """Bad CIF files: one line naming the file and the fault, exit status 2, nothing under the results folder.
 
+Internal behaviour of the tool only: no published value is checked here.
+
 Issue 9, item 1 (CIF part).  The loader is the lattice engineer's ``screening.structures``
 (``host_from_structure`` reads one CIF and its sidecar YAML); a rule set names a CIF with the key
 ``structures``.  The fixtures in ``tests/data/bad/`` derive from ``candidates/structures/TiO2_rutile.cif``

@@ -1,5 +1,7 @@
 """Two runs of the same inputs give byte-identical shortlist.csv and funnel.csv.
 
+Internal behaviour of the tool only: no published value is checked here.
+
 The second run differs in everything that should not matter: another results
 folder, another number of cores, and a copy of the inputs in another folder.
 """

@@ -1,5 +1,7 @@
 """An interrupted screen resumes and gives the same shortlist (issue 9, item 3).
 
+Internal behaviour of the tool only: no published value is checked here.
+
 A researcher presses Ctrl-C on ``screening run`` (or a shared machine's scheduler stops it) while the
 screen is part-way: the terminal sends SIGINT to the whole foreground process group, so both the
 ``screening`` process and the Snakemake process it started receive it.  The test does the same on the

@@ -1,4 +1,7 @@
-"""Progress of a screen: parsed from Snakemake's own output and the stage logs; quiet for a short run."""
+"""Progress of a screen: parsed from Snakemake's own output and the stage logs; quiet for a short run.
+
+Internal behaviour of the tool only: no published value is checked here.
+"""
 from __future__ import annotations
 
 import io

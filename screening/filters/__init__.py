@@ -50,8 +50,15 @@ def _values(value, mask, n):
 
 
 def _texts(detail, mask, n):
+    """``detail``: one sentence, one per row of the frame, or a function of the rejected rows' positions.
+
+    A function is called only with the positions that are rejected, so the sentences (formatted
+    numbers: Python per row) are built for the rejected rows, not for every candidate.
+    """
     if isinstance(detail, str):
         return np.full(n, detail, dtype=object)
+    if callable(detail):
+        return np.asarray(list(detail(np.flatnonzero(np.asarray(mask)))), dtype=object).reshape(n)
     return np.asarray(detail, dtype=object)[np.asarray(mask)]
 
 

@@ -42,13 +42,12 @@ def apply(frame: pd.DataFrame, alignment: dict) -> tuple[pd.DataFrame, pd.DataFr
     # name the condition that fails (or the weaker one): the smaller margin in sigma units
     cbm_worse = {"overall": her <= oer, "hydrogen": np.ones(len(frame), bool),
                  "oxygen": np.zeros(len(frame), bool)}[mode]
-    her_text = (f"CBM margin above H+/H2 + {alignment['her_overpotential_v']:g} V "
-                + pd.Series(her, index=frame.index).map(lambda v: f"{v:+.3f}") + " V")
-    oer_text = (f"occupied-level margin below O2/H2O + {alignment['oer_overpotential_v']:g} V "
-                + pd.Series(oer, index=frame.index).map(lambda v: f"{v:+.3f}") + " V")
-    sigma = pd.Series(frame["cbm_sigma_v"].to_numpy(float), index=frame.index).map(lambda v: f"{v:.2f}")
-    detail = ("P(aligned) " + pd.Series(probability, index=frame.index).map(lambda v: f"{v:.3f}")
-              + f" < {threshold:g} ({mode}): "
-              + pd.Series(np.where(cbm_worse, her_text, oer_text), index=frame.index)
-              + " (sigma " + sigma + " V)")
+    sigma = frame["cbm_sigma_v"].to_numpy(float)
+
+    def detail(rows):
+        return [f"P(aligned) {p:.3f} < {threshold:g} ({mode}): "
+                + (f"CBM margin above H+/H2 + {alignment['her_overpotential_v']:g} V {h:+.3f} V" if worse
+                   else f"occupied-level margin below O2/H2O + {alignment['oer_overpotential_v']:g} V {o:+.3f} V")
+                + f" (sigma {s:.2f} V)"
+                for p, h, o, s, worse in zip(probability[rows], her[rows], oer[rows], sigma[rows], cbm_worse[rows])]
     return frame[~bad], rejected_candidates(frame, bad, RULE, probability, threshold, detail)

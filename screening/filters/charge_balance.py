@@ -24,11 +24,12 @@ def apply(candidates: pd.DataFrame, thresholds: dict) -> tuple[pd.DataFrame, pd.
     bad = uncompensated | too_many
     value = np.where(uncompensated, candidates["dopant_delta"], candidates["max_ratio_count"])
     threshold = np.where(uncompensated, 0, max_ratio)
-    detail = np.where(
-        uncompensated,
-        "uncompensated effective charge " + candidates["dopant_delta"].map(lambda d: f"{d:+d}").astype(str)
-        + " (no compensation allowed by the rule set)",
-        "ratio " + candidates["ratio"].astype(str) + " needs more than " + str(max_ratio) + " ions of one kind")
+    def detail(rows):
+        delta = candidates["dopant_delta"].to_numpy()[rows]
+        ratio = candidates["ratio"].to_numpy()[rows]
+        return [f"uncompensated effective charge {d:+d} (no compensation allowed by the rule set)" if none
+                else f"ratio {r} needs more than {max_ratio} ions of one kind"
+                for d, r, none in zip(delta, ratio, uncompensated[rows])]
     kept = candidates[~bad]
     # an invariant of the enumeration, not a user-facing rule: fail loudly if broken
     residual = net_charge(kept)

@@ -61,7 +61,9 @@ def apply_composition(candidates: pd.DataFrame, amounts: pd.DataFrame, threshold
             continue
         value = metrics[column].to_numpy(float)
         bad = keep & (value > float(limit))
-        detail = pd.Series(value, index=candidates.index).map(lambda v: template.format(v, float(limit)))
-        rejected.append(rejected_candidates(candidates, bad, rule, value, float(limit), detail))
+        rejected.append(rejected_candidates(
+            candidates, bad, rule, value, float(limit),
+            lambda rows, value=value, template=template, limit=limit:
+                [template.format(v, float(limit)) for v in value[rows]]))
         keep &= ~bad
     return candidates[keep], (pd.concat(rejected, ignore_index=True) if rejected else None), metrics[keep]
