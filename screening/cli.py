@@ -63,15 +63,18 @@ def build_parser(argv: list[str] | None = None) -> argparse.ArgumentParser:
 # with the help line shown by `screening --help`.
 COMMAND_MODULES = {
     "audit": "scarcity, cost and supply audit of a formula or a shortlist",
+    "calibration": "the band-edge calibration: reference rows, leave-one-out error, plot",
     "diff": "compare two results folders: provenance, then candidates that entered, left or moved",
     "explain": "every rule a candidate met, its defects and the numbers behind its score",
 }
+# a command whose module is not screening.<command> (screening.calibration is the fit itself)
+MODULE_OF_COMMAND = {"calibration": "calibration_plot"}
 
 
 def _command_module(name: str):
     import importlib
 
-    return importlib.import_module(f"screening.{name}")
+    return importlib.import_module(f"screening.{MODULE_OF_COMMAND.get(name, name)}")
 
 
 def _version() -> str:
@@ -121,9 +124,21 @@ def cmd_edges(args) -> int:
 
 
 def cmd_run(args) -> int:
+    from screening import progress
+
+    # Snakemake's import (~2 s) runs in its own process while the input is checked (~1 s).
+    early = progress.EarlyWorkflow()
+    try:
+        return _run_checked(args, early)
+    finally:
+        if early.process.returncode is None and not early.process.stdin.closed:
+            early.discard()  # the input was refused (or Ctrl-C): the process never got its arguments
+
+
+def _run_checked(args, early) -> int:
     import shlex
 
-    from screening import pools, rulesets, structures
+    from screening import pools, progress, rulesets, structures
 
     # Check everything that enters before any work, so bad input leaves nothing behind.
     rules = rulesets.load_ruleset(args.rules)
@@ -138,7 +153,8 @@ def cmd_run(args) -> int:
     if not SNAKEFILE.is_file():
         raise ScreeningError(f"workflow file not found at {SNAKEFILE} (install the package from a checkout "
                              "with `pip install -e .`)")
-    command = [sys.executable, "-m", "snakemake", "--snakefile", str(SNAKEFILE), "--cores", str(args.cores),
+    # handed to screening.snakemake_main: Snakemake's own command line, started early, ending sooner
+    command = ["--snakefile", str(SNAKEFILE), "--cores", str(args.cores),
                "--directory", str(out), "--config", f"ruleset={rules.path}", f"out={out}",
                "--rerun-incomplete", "--quiet", "rules",
                # stages run in threads of one process: no interpreter start-up per job
@@ -147,10 +163,9 @@ def cmd_run(args) -> int:
         command.append("--dry-run")
     command += shlex.split(args.snakemake_args)
     out.mkdir(parents=True, exist_ok=True)
-    from screening import progress
-
     # Snakemake's output is held back (and printed whole on failure); a long run shows a status line.
-    returncode = progress.run_workflow(command, out, after_s=progress.delay_from_env(), echo=args.dry_run)
+    returncode = progress.run_workflow(command, out, after_s=progress.delay_from_env(), echo=args.dry_run,
+                                       early=early)
     if returncode != 0:
         print(f"screening: the workflow failed (exit {returncode}); see {out}/logs", file=sys.stderr)
         return 1
@@ -167,9 +182,7 @@ def main(argv: list[str] | None = None) -> int:
             return cmd_run(args)
         if args.command == "edges":
             return cmd_edges(args)
-        import importlib
-
-        return importlib.import_module(f"screening.{args.command}").run(args)
+        return _command_module(args.command).run(args)
     except ScreeningError as exc:
         print(f"screening: error: {exc}", file=sys.stderr)
         return 2

@@ -185,6 +185,15 @@ def screen_shard(hosts_json, shard: int, pool_file, enumeration: dict, filters: 
         funnel.append(_funnel_rows(rule, count, count - gone))
         count = count - gone
     kept = pd.concat([candidates.reset_index(drop=True), metrics.reset_index(drop=True)], axis=1)
+    # issue 4: which site each ion prefers (Hautier 2011 substitution probability x radius match).
+    # A property of the composition and the radius limit alone, so it is settled here, once, and a
+    # change of ranking weights does not recompute it (it was most of the rank stage's time).
+    from screening import site_preference
+
+    width = max(float(filters["radius_mismatch"]["max_relative"]), 1e-3)
+    preference = site_preference.candidate_likelihoods(kept, hosts, width)
+    kept["site_likelihood"] = preference["site_likelihood"].to_numpy(float)
+    kept["preferred_site"] = preference["preferred_site"].to_numpy(bool)
     log.info("shard %d: %d hosts, %d candidates enumerated, %d kept", shard, len(hosts),
              int(enumerated.sum()), len(kept))
     write_parquet(kept, kept_out)
@@ -317,13 +326,6 @@ def rank(hosts_json, kept_files, edge_files, alignment: dict, ranking: dict, str
     after = frame.groupby("host").size().reindex(host_ids, fill_value=0)
     write_csv(_funnel_rows("alignment", before, after), funnel_out)
     write_parquet(removed, rejected_out)
-
-    # issue 4: which site each ion prefers (Hautier 2011 substitution probability x radius match)
-    from screening import site_preference
-
-    preference = site_preference.candidate_likelihoods(frame, hosts, max(float(strain_limit), 1e-3))
-    frame["site_likelihood"] = preference["site_likelihood"].to_numpy(float)
-    frame["preferred_site"] = preference["preferred_site"].to_numpy(bool)
 
     weights = ranking["weights"]
     terms = score_terms(frame, strain_limit)

@@ -18,6 +18,7 @@ overrides the delay.
 """
 from __future__ import annotations
 
+import json
 import os
 import re
 import subprocess
@@ -139,19 +140,55 @@ def delay_from_env() -> float | None:
     return value
 
 
+class EarlyWorkflow:
+    """A Snakemake process started before its arguments are known (see :mod:`screening.snakemake_main`).
+
+    ``screening run`` starts it first, so that Snakemake's import overlaps the input checks; then
+    either :meth:`release` gives it the arguments (and :func:`run_workflow` follows it), or
+    :meth:`discard` ends it, having run nothing.
+    """
+
+    def __init__(self):
+        from screening import snakemake_main
+
+        self.process = subprocess.Popen(
+            [sys.executable, "-m", "screening.snakemake_main", snakemake_main.WAIT_FLAG],
+            stdin=subprocess.PIPE, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True,
+            encoding="utf-8", errors="replace", bufsize=1)
+
+    def release(self, argv: list[str]) -> subprocess.Popen:
+        """Hand over Snakemake's arguments and this process's environment as it is now."""
+        message = json.dumps({"argv": list(argv), "environ": dict(os.environ)})
+        self.process.stdin.write(message + "\n")
+        self.process.stdin.close()
+        return self.process
+
+    def discard(self) -> None:
+        """End the process: it is still waiting for its arguments, so it has done nothing."""
+        self.process.kill()
+        self.process.wait()
+        for pipe in (self.process.stdin, self.process.stdout):
+            if pipe is not None:
+                pipe.close()
+
+
 def run_workflow(command: list[str], out: Path, *, after_s: float | None = DEFAULT_AFTER_S,
-                 stream=None, echo: bool = False) -> int:
+                 stream=None, echo: bool = False, early: EarlyWorkflow | None = None) -> int:
     """Run the Snakemake command; show progress once it has run ``after_s`` seconds.
 
-    Returns Snakemake's exit status.  Its output is printed to ``stream`` in
-    full when it fails or when ``echo`` is set (a dry run's plan).
+    ``command`` is a full command line, or, with ``early``, the arguments handed to that already
+    started Snakemake process.  Returns Snakemake's exit status.  Its output is printed to
+    ``stream`` in full when it fails or when ``echo`` is set (a dry run's plan).
     """
     stream = stream if stream is not None else sys.stderr
     start = time.time()
     logs = Path(out) / "logs"
     state = State()
-    process = subprocess.Popen(command, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True,
-                               encoding="utf-8", errors="replace", bufsize=1)
+    if early is not None:
+        process = early.release(command)
+    else:
+        process = subprocess.Popen(command, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True,
+                                   encoding="utf-8", errors="replace", bufsize=1)
 
     def read():
         for line in process.stdout:

@@ -24,3 +24,35 @@ def small_screen(tmp_path) -> Path:
     for name in ("small_rules.yaml", "small_hosts.yaml", "small_pool.yaml"):
         shutil.copy(DATA / name, tmp_path / name)
     return tmp_path / "small_rules.yaml"
+
+
+class _UnreleasedWorkflow:
+    """Stands in for screening.progress.EarlyWorkflow: any attempt to hand it arguments fails the test."""
+
+    instances: list = []
+
+    def __init__(self):
+        import types
+
+        self.discarded = False
+        # the attributes screening.cli looks at before it discards the process
+        self.process = types.SimpleNamespace(returncode=None, stdin=types.SimpleNamespace(closed=False))
+        _UnreleasedWorkflow.instances.append(self)
+
+    def release(self, argv):
+        raise AssertionError(f"validation let bad input through: the workflow was released with {argv[:6]}")
+
+    def discard(self):
+        self.discarded = True
+
+
+@pytest.fixture
+def no_workflow_release(monkeypatch):
+    """``screening run`` starts its Snakemake process before the input checks (screening.snakemake_main);
+    this replaces that process by a stand-in that fails the test if it is ever given arguments.
+    Returns the list of stand-ins made, to check that each was discarded."""
+    from screening import progress
+
+    _UnreleasedWorkflow.instances = []
+    monkeypatch.setattr(progress, "EarlyWorkflow", _UnreleasedWorkflow)
+    return _UnreleasedWorkflow.instances

@@ -8,8 +8,11 @@ entry point ``screening.cli.main`` as a user would meet it, and checks four thin
 * no traceback;
 * nothing is written under the results folder (``--out`` must not even be created).
 
-The workflow is never started: ``subprocess.run`` is replaced by a function that fails the test, so a
-validation gap shows up as a clear failure instead of a 30-second Snakemake run.
+The workflow is never run: ``screening run`` starts its Snakemake process before the checks (it only
+imports Snakemake until handed its arguments, see screening.snakemake_main), and here that process is a
+stand-in that fails the test when handed arguments (fixture ``no_workflow_release``); ``subprocess.run``
+and ``subprocess.Popen`` fail the test too.  A validation gap shows up as a clear failure instead of a
+30-second Snakemake run.
 """
 from __future__ import annotations
 
@@ -31,7 +34,7 @@ BAD = DATA / "bad"
 # --- helpers ----------------------------------------------------------------------------------
 
 @pytest.fixture
-def screen_dir(tmp_path, monkeypatch):
+def screen_dir(tmp_path, monkeypatch, no_workflow_release):
     """A writable copy of the small screen; cwd is tmp_path so a stray 'results/' would show up there."""
     for name in ("small_rules.yaml", "small_hosts.yaml", "small_pool.yaml"):
         shutil.copy(DATA / name, tmp_path / name)

@@ -52,7 +52,7 @@ def test_loader_refuses_bad_cif(tmp_path, case):
 
 
 @pytest.mark.parametrize("case", sorted(CASES))
-def test_screen_with_bad_cif_stops_with_one_line(tmp_path, monkeypatch, capsys, case):
+def test_screen_with_bad_cif_stops_with_one_line(tmp_path, monkeypatch, capsys, case, no_workflow_release):
     name, words = CASES[case]
     for data in ("small_hosts.yaml", "small_pool.yaml"):
         shutil.copy(DATA / data, tmp_path / data)
@@ -75,3 +75,5 @@ def test_screen_with_bad_cif_stops_with_one_line(tmp_path, monkeypatch, capsys, 
     assert str(path) in lines[0] and words in lines[0]
     assert "Traceback" not in err
     assert not (tmp_path / "results").exists()
+    # the Snakemake process started ahead of the checks was ended unused
+    assert len(no_workflow_release) == 1 and no_workflow_release[0].discarded
