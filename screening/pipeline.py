@@ -185,15 +185,6 @@ def screen_shard(hosts_json, shard: int, pool_file, enumeration: dict, filters: 
         funnel.append(_funnel_rows(rule, count, count - gone))
         count = count - gone
     kept = pd.concat([candidates.reset_index(drop=True), metrics.reset_index(drop=True)], axis=1)
-    # issue 4: which site each ion prefers (Hautier 2011 substitution probability x radius match).
-    # A property of the composition and the radius limit alone, so it is settled here, once, and a
-    # change of ranking weights does not recompute it (it was most of the rank stage's time).
-    from screening import site_preference
-
-    width = max(float(filters["radius_mismatch"]["max_relative"]), 1e-3)
-    preference = site_preference.candidate_likelihoods(kept, hosts, width)
-    kept["site_likelihood"] = preference["site_likelihood"].to_numpy(float)
-    kept["preferred_site"] = preference["preferred_site"].to_numpy(bool)
     log.info("shard %d: %d hosts, %d candidates enumerated, %d kept", shard, len(hosts),
              int(enumerated.sum()), len(kept))
     write_parquet(kept, kept_out)
@@ -215,13 +206,16 @@ def screen_shard(hosts_json, shard: int, pool_file, enumeration: dict, filters: 
 
 # --- stage 3: band edges -----------------------------------------------------------------
 
-def edge_shard(hosts_json, shard: int, kept_file, edges_out) -> pd.DataFrame:
-    """Raw and calibrated band edges (pH 0) with their sigma, dopant-level onset, STH limit, in-gap risk.
+def edge_shard(hosts_json, shard: int, kept_file, radius_limit: float, edges_out) -> pd.DataFrame:
+    """Raw and calibrated band edges (pH 0) with their sigma, dopant-level onset, STH limit, in-gap risk,
+    and the site likelihood of each candidate's ions.
 
-    Takes no rule-set section: everything here is a property of the composition (the rule set's pH,
-    margins and the raw/calibrated switch act in :func:`rank`).
+    Everything here is a property of the composition; the one rule-set value it takes is the radius
+    mismatch ceiling ``radius_limit``, the width of the site likelihood's radius weight.  The rule set's
+    pH, margins and the raw/calibrated switch act in :func:`rank`, so a change of ranking weights
+    recomputes none of this (the site likelihood was most of the rank stage's time).
     """
-    from screening import calibration as calib, dopant_levels, ingap
+    from screening import calibration as calib, dopant_levels, ingap, site_preference
 
     hosts = read_hosts(hosts_json, shard)
     kept = pd.read_parquet(kept_file)
@@ -253,6 +247,10 @@ def edge_shard(hosts_json, shard: int, kept_file, edges_out) -> pd.DataFrame:
         "ingap_risk": risk["ingap_risk"].to_numpy(str), "ingap_reason": risk["ingap_reason"].to_numpy(str),
         "sth_limit": solar.sth_limit(onset) if len(kept) else np.array([]),
     })
+    # issue 4: which site each ion prefers (Hautier 2011 substitution probability x radius match)
+    preference = site_preference.candidate_likelihoods(kept, hosts, max(float(radius_limit), 1e-3))
+    edges["site_likelihood"] = preference["site_likelihood"].to_numpy(float)
+    edges["preferred_site"] = preference["preferred_site"].to_numpy(bool)
     write_parquet(edges, edges_out)
     return edges
 

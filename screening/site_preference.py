@@ -139,7 +139,9 @@ def site_likelihoods(ion_hosts: pd.DataFrame, hosts: dict[str, Host], width: flo
     table["size_weight"] = np.nan_to_num(np.exp(-(table["mismatch"].to_numpy(float) / width) ** 2), nan=0.0)
     table["substitution_probability"] = substitution_probability(table)
     group = ["host", "element", "charge"]
-    complete = table.groupby(group)["substitution_probability"].transform(lambda p: p.notna().all())
+    # every site of the ion in the host has a table value (one vectorised group-wise 'all', not a
+    # Python function per group: that was two thirds of this function's time on 100 hosts)
+    complete = table["substitution_probability"].notna().groupby([table[g] for g in group]).transform("all")
     table["probability_source"] = np.where(complete, "Hautier 2011 x radius", "radius only")
     weight = table["size_weight"] * np.where(complete, table["substitution_probability"].fillna(0.0), 1.0)
     total = weight.groupby([table[g] for g in group]).transform("sum")

@@ -90,7 +90,8 @@ def staged(tmp_path_factory):
     pipeline.screen_shard(hosts_json, 0, rules.pool_path, rules.section("enumeration"), rules.section("filters"),
                           rules.section("scarcity"), root / "kept.parquet", root / "rejected.parquet",
                           root / "funnel.csv")
-    pipeline.edge_shard(hosts_json, 0, root / "kept.parquet", root / "edges.parquet")
+    pipeline.edge_shard(hosts_json, 0, root / "kept.parquet", rules.sections["filters"]["radius_mismatch"]["max_relative"],
+                        root / "edges.parquet")
     return root, rules
 
 

@@ -80,7 +80,8 @@ def _uninterrupted_chain(rules_path: Path, out: Path) -> Path:
         pipeline.screen_shard(stages / "hosts.json", i, rules.pool_path, rules.section("enumeration"),
                               rules.section("filters"), rules.section("scarcity"), shard / "kept.parquet",
                               shard / "rejected.parquet", shard / "funnel.csv")
-        pipeline.edge_shard(stages / "hosts.json", i, shard / "kept.parquet", shard / "edges.parquet")
+        pipeline.edge_shard(stages / "hosts.json", i, shard / "kept.parquet",
+                            rules.sections["filters"]["radius_mismatch"]["max_relative"], shard / "edges.parquet")
     pipeline.rank(stages / "hosts.json", [s / "kept.parquet" for s in shards], [s / "edges.parquet" for s in shards],
                   rules.section("alignment"), rules.section("ranking"),
                   rules.sections["filters"]["radius_mismatch"]["max_relative"], stages / "ranked.parquet",

@@ -224,7 +224,8 @@ def edges(small):
     out.mkdir()
     pipeline.screen_shard(small["hosts_json"], 0, small["pool"], sections["enumeration"], sections["filters"],
                           sections["scarcity"], out / "kept.parquet", out / "rejected.parquet", out / "funnel.csv")
-    pipeline.edge_shard(small["hosts_json"], 0, out / "kept.parquet", out / "edges.parquet")
+    pipeline.edge_shard(small["hosts_json"], 0, out / "kept.parquet",
+                        sections["filters"]["radius_mismatch"]["max_relative"], out / "edges.parquet")
     kept_ids = set(pd.read_parquet(out / "kept.parquet")["candidate_id"])
     assert kept_ids, "the loose screen should keep candidates for the alignment properties"
     return {"out": out, "sections": sections, "cache": {}, "kept_ids": kept_ids}

@@ -40,7 +40,8 @@ def build_results(rules_path: Path, out: Path, *, with_provenance: bool = True) 
         pipeline.screen_shard(hosts_json, shard, rules.pool_path, rules.section("enumeration"),
                               rules.section("filters"), rules.section("scarcity"), d / "kept.parquet",
                               d / "rejected.parquet", d / "funnel.csv")
-        pipeline.edge_shard(hosts_json, shard, d / "kept.parquet", d / "edges.parquet")
+        pipeline.edge_shard(hosts_json, shard, d / "kept.parquet", rules.sections["filters"]["radius_mismatch"]["max_relative"],
+                            d / "edges.parquet")
         kept.append(d / "kept.parquet")
         edges.append(d / "edges.parquet")
         rejected.append(d / "rejected.parquet")
