@@ -215,9 +215,11 @@ def rule_checks(row, sections: dict, site_radii: dict) -> list[dict]:
     mode = alignment["mode"]
     needed = {"overall": ("her", "oer"), "hydrogen": ("her",), "oxygen": ("oer",)}[mode]
     edge = "calibrated CBM" if calibrated else "CBM (raw Butler–Ginley)"
+    note = "enters the probability" if "her" in needed else f"not needed in mode {mode}"
+    if calibrated and bool(row.get("calibration_extrapolated", False)):
+        note += "; extrapolated: the host lies outside the raw-CBM span of the calibration's reference rows"
     checks.append(_check("alignment", f"{edge} vs H+/H2 - {alignment['her_overpotential_v']:g} V at pH {ph:g}",
-                         cbm, hydrogen - alignment["her_overpotential_v"], float(her), "V vs NHE",
-                         note="enters the probability" if "her" in needed else f"not needed in mode {mode}"))
+                         cbm, hydrogen - alignment["her_overpotential_v"], float(her), "V vs NHE", note=note))
     checks.append(_check("alignment", f"highest occupied level vs O2/H2O + {alignment['oer_overpotential_v']:g} V "
                          f"at pH {ph:g}", occupied, oxygen + alignment["oer_overpotential_v"], float(oer),
                          "V vs NHE", note="enters the probability" if "oer" in needed

@@ -241,6 +241,9 @@ def edge_shard(hosts_json, shard: int, kept_file, radius_limit: float, edges_out
         "cbm_cal_v_nhe_ph0": np.atleast_1d(cbm_cal), "vbm_cal_v_nhe_ph0": np.atleast_1d(vbm_cal),
         "cbm_sigma_cal_v": np.atleast_1d(cbm_sigma), "vbm_sigma_cal_v": np.atleast_1d(vbm_sigma),
         "sigma_raw_v": np.full(len(kept), raw_sigma),
+        # outside the raw-CBM span of the reference rows the calibration fitted, its line and sigma are an
+        # extrapolation (README, "Band edges": the wide-gap vacuum rows argue against it there)
+        "calibration_extrapolated": (cbm < min(cal.raw_cbm_v)) | (cbm > max(cal.raw_cbm_v)),
         "host_gap_ev": gap, "onset_ev": onset,
         "level_flag": levels["level_flag"].to_numpy(str), "level_note": levels["level_note"].to_numpy(str),
         "level_same_host": levels["level_same_host"].to_numpy(bool),
@@ -346,7 +349,7 @@ SHORTLIST_COLUMNS = [
     "compensation", "defects", "formula", "dopant_fraction", "codopant_fraction", "dopant_mismatch",
     "codopant_mismatch", "radius_estimated", "site_likelihood", "preferred_site", "chi_ev", "cbm_v_nhe",
     "vbm_v_nhe", "cbm_calibrated_v_nhe",
-    "vbm_calibrated_v_nhe", "cbm_sigma_v", "vbm_sigma_v", "occupied_level_v_nhe", "her_margin_v", "oer_margin_v",
+    "vbm_calibrated_v_nhe", "cbm_sigma_v", "vbm_sigma_v", "calibration_extrapolated", "occupied_level_v_nhe", "her_margin_v", "oer_margin_v",
     "alignment_probability", "onset_ev", "level_flag", "level_note", "sth_limit", "expected_sth", "ingap_risk",
     "ingap_reason", "cost_usd_per_kg", "hhi_production", "scarcest_element", "critical_elements",
     "score",

@@ -156,3 +156,35 @@ def test_ingap_weight_moves_the_score(staged):
     penalty = {"low": 0.0, "medium": -0.5, "high": -1.0}
     np.testing.assert_allclose(merged["score"] - merged["score_0"],
                                rules.section("ranking")["weights"]["ingap"] * merged["ingap_risk"].map(penalty))
+
+
+def test_calibration_extrapolated_marks_hosts_outside_the_fitted_span(staged):
+    # The span of raw Butler–Ginley CBMs (pH 0) of the reference rows the calibration fits (the flat-band
+    # rows of screening/data/band_edge_reference.csv, each row's published source named there), recomputed
+    # here from the CSV with the per-formula route of screening.bands.
+    from screening import calibration, formulas
+
+    reference = calibration.load_reference()
+    flatband = reference[reference["edge_kind"] == "flatband"]
+    span = [bands.band_edges(bands.electronegativity(formulas.parse_formula(f)), g)[0]
+            for f, g in zip(flatband["formula"], flatband["gap_ev"])]
+    root, rules = staged
+    # INVENTED for this check: NaTaO3 given a 6.5 eV gap moves its raw CBM 1.25 V more negative, outside
+    # the span (the small library's real hosts all lie inside it)
+    import json
+
+    document = json.loads((root / "hosts.json").read_text())
+    for record in document["hosts"]:
+        if record["id"] == "NaTaO3":
+            record["gap_ev"] = 6.5
+    widened = root / "hosts_wide_gap.json"
+    widened.write_text(json.dumps(document))
+    edges = pipeline.edge_shard(widened, 0, root / "kept.parquet",
+                                rules.sections["filters"]["radius_mismatch"]["max_relative"],
+                                root / "edges_wide_gap.parquet")
+    outside = (edges["cbm_v_nhe_ph0"] < min(span) - 1e-9) | (edges["cbm_v_nhe_ph0"] > max(span) + 1e-9)
+    inside = (edges["cbm_v_nhe_ph0"] > min(span) + 1e-9) & (edges["cbm_v_nhe_ph0"] < max(span) - 1e-9)
+    assert (edges.loc[outside, "calibration_extrapolated"]).all()
+    assert not (edges.loc[inside, "calibration_extrapolated"]).any()
+    # both branches exercised: the widened NaTaO3 outside, the other hosts inside
+    assert outside.any() and inside.any(), sorted(set(edges["cbm_v_nhe_ph0"].round(2)))
