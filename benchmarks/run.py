@@ -10,7 +10,7 @@ ratio    candidates per second through enumeration and the charge, radius and
          abundance rules (plus oxidation state, radioactivity and cost, which
          both sides apply) for (a) the pipeline's shard stage and (b) the plain
          per-candidate reference in ``reference_screen.py``, on the same hosts
-         (pipeline: median of 3 runs after a warm-up; reference: one run);
+         (pipeline: median of 5 runs after a warm-up; reference: one run);
          prints the ratio and checks that both keep the same candidates.
 scaling  the whole workflow (``screening run``) on synthetic host libraries of
          10, 100 and 1,000 hosts, with wall time and peak memory (largest
@@ -102,7 +102,7 @@ def timed_child(command: list[str], env: dict | None = None) -> tuple[float, flo
     return wall, peak, code
 
 
-PIPELINE_RUNS = 3
+PIPELINE_RUNS = 5
 
 
 def part_ratio(n_hosts: int) -> dict:
@@ -118,7 +118,7 @@ def part_ratio(n_hosts: int) -> dict:
         sections = [rules.section(s) for s in ("enumeration", "filters", "scarcity")]
         pipeline.screen_shard(tmp / "hosts.json", 0, rules.pool_path, *sections, tmp / "k.parquet",
                               tmp / "r.parquet", tmp / "f.csv")  # warm caches (ion table, element facts)
-        # the pipeline's second is at the mercy of the machine's other work: the median of three runs
+        # the pipeline's second is at the mercy of the machine's other work: the median of five runs
         # (the reference's 90 s average that out by themselves)
         runs = []
         for _ in range(PIPELINE_RUNS):

@@ -30,6 +30,7 @@ from __future__ import annotations
 import json
 import os
 import re
+import threading
 from dataclasses import dataclass
 from functools import lru_cache
 from importlib import metadata
@@ -242,7 +243,29 @@ def lookup_radii(query: pd.DataFrame) -> pd.DataFrame:
     rejects a candidate; it is never treated as a pass.
     """
     data = load_ion_data()
-    keys = query[["element", "charge", "coordination"]].drop_duplicates().reset_index(drop=True)
+    keys = query[RADIUS_KEY].drop_duplicates().reset_index(drop=True)
+    known = _RESOLVED_RADII.get(data.version)
+    if known is not None:
+        keys = keys.merge(known[RADIUS_KEY], on=RADIUS_KEY, how="left", indicator=True)
+        keys = keys.loc[keys["_merge"] == "left_only", RADIUS_KEY].reset_index(drop=True)
+    if len(keys):
+        resolved = _resolve_radii(keys, data)
+        with _RESOLVED_LOCK:
+            known = pd.concat([_RESOLVED_RADII.get(data.version), resolved], ignore_index=True)
+            _RESOLVED_RADII[data.version] = known
+    return query.merge(known, on=RADIUS_KEY, how="left")
+
+
+RADIUS_KEY = ["element", "charge", "coordination"]
+# Radii already resolved in this process, by ion-table version: every shard of a screen (threads of
+# one process) asks for much the same ions, and resolving them -- spin choice, estimates -- was the
+# larger part of each look-up.  Only complete results are stored (an unknown element raises first).
+_RESOLVED_RADII: dict[str, pd.DataFrame] = {}
+_RESOLVED_LOCK = threading.Lock()
+
+
+def _resolve_radii(keys: pd.DataFrame, data: IonData) -> pd.DataFrame:
+    """radius_a, spin and radius_estimated for distinct (element, charge, coordination) ``keys``."""
     periods = keys["element"].map(data.elements["period"])
     if periods.isna().any():
         bad = sorted(keys.loc[periods.isna(), "element"].unique())
@@ -271,9 +294,7 @@ def lookup_radii(query: pd.DataFrame) -> pd.DataFrame:
     exact["spin"] = exact["spin"].fillna("").astype(str)
     exact["radius_a"] = exact["radius_a"].astype(float)
     exact["radius_estimated"] = exact["radius_estimated"].astype(bool)
-    result = query.merge(exact[["element", "charge", "coordination", "radius_a", "spin", "radius_estimated"]],
-                         on=["element", "charge", "coordination"], how="left")
-    return result
+    return exact[RADIUS_KEY + ["radius_a", "spin", "radius_estimated"]].reset_index(drop=True)
 
 
 ESTIMATE_NEAREST = 3

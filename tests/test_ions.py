@@ -125,3 +125,19 @@ def test_ion_labels_round_trip():
     for element, charge, label in [("Cr", 3, "Cr3+"), ("N", -3, "N3-"), ("F", -1, "F-"), ("Na", 1, "Na+")]:
         assert ions.ion_label(element, charge) == label
         assert ions.parse_ion_label(label) == (element, charge)
+
+
+def test_radii_resolved_earlier_in_the_process_give_the_same_answers():
+    # lookup_radii keeps what it resolved (ions._RESOLVED_RADII); answers must not depend on what was
+    # asked before.  Values: Shannon, Acta Cryst. A32 (1976) 751 -- Ti4+ VI 0.605 A, Sr2+ XII 1.44 A.
+    query = pd.DataFrame({"element": ["Ti", "Sr", "Ni", "Cr", "Fe"], "charge": [4, 2, 2, 3, 3],
+                          "coordination": [6, 12, 12, 12, 6]})
+    ions._RESOLVED_RADII.clear()
+    fresh = ions.lookup_radii(query)
+    assert fresh.loc[0, "radius_a"] == pytest.approx(0.605) and fresh.loc[1, "radius_a"] == pytest.approx(1.44)
+    ions._RESOLVED_RADII.clear()
+    ions.lookup_radii(query.iloc[[3, 1]])          # a part first, in another order
+    again = ions.lookup_radii(query)               # then the whole: part remembered, part resolved now
+    pd.testing.assert_frame_equal(again, fresh)
+    assert ions.lookup_radii(query.iloc[::-1].reset_index(drop=True)).iloc[::-1].reset_index(drop=True) \
+        .equals(fresh)
