@@ -251,7 +251,10 @@ def lookup_radii(query: pd.DataFrame) -> pd.DataFrame:
     if len(keys):
         resolved = _resolve_radii(keys, data)
         with _RESOLVED_LOCK:
-            known = pd.concat([_RESOLVED_RADII.get(data.version), resolved], ignore_index=True)
+            # another thread may have resolved some of the same keys meanwhile: keep one row a key, or
+            # the merge below would repeat rows
+            known = (pd.concat([_RESOLVED_RADII.get(data.version), resolved], ignore_index=True)
+                     .drop_duplicates(RADIUS_KEY, ignore_index=True))
             _RESOLVED_RADII[data.version] = known
     return query.merge(known, on=RADIUS_KEY, how="left")
 

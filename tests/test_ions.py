@@ -141,3 +141,23 @@ def test_radii_resolved_earlier_in_the_process_give_the_same_answers():
     pd.testing.assert_frame_equal(again, fresh)
     assert ions.lookup_radii(query.iloc[::-1].reset_index(drop=True)).iloc[::-1].reset_index(drop=True) \
         .equals(fresh)
+
+
+def test_radius_lookups_from_many_threads_keep_one_row_per_query_row():
+    # The shards of a local screen run as threads of one process and look radii up at the same time; a
+    # race once stored keys twice and the look-up then returned more rows than it was asked (a workflow
+    # failure).  Many threads asking overlapping questions must each get exactly their rows back.
+    from concurrent.futures import ThreadPoolExecutor
+
+    elements = ["Ti", "Sr", "Ni", "Cr", "Fe", "Nb", "Ta", "La", "Mn", "Co", "Zn", "Ga", "In", "Sn", "W", "Mo"]
+    charges = [4, 2, 2, 3, 3, 5, 5, 3, 3, 2, 2, 3, 3, 4, 6, 6]
+    queries = [pd.DataFrame({"element": elements[i:] + elements[:i], "charge": charges[i:] + charges[:i],
+                             "coordination": [6 + (i + k) % 7 for k in range(len(elements))]})
+               for i in range(len(elements))]
+    for _ in range(3):
+        ions._RESOLVED_RADII.clear()
+        with ThreadPoolExecutor(max_workers=8) as pool:
+            answers = list(pool.map(ions.lookup_radii, queries))
+        for query, answer in zip(queries, answers):
+            assert len(answer) == len(query)
+            pd.testing.assert_frame_equal(answer[["element", "charge", "coordination"]], query)
