@@ -16,5 +16,8 @@ def apply(placements: pd.DataFrame, thresholds: dict) -> tuple[pd.DataFrame, pd.
     if not thresholds["common_only"]:
         return placements, rejected_ions(placements, placements.index < 0, RULE, None, None, "")
     bad = ~placements["common"].astype(bool).to_numpy()
-    detail = placements["ion"] + " is not a common oxidation state of " + placements["element"] + " (mendeleev)"
+    def detail(rows):
+        chosen = placements.iloc[rows]
+        return chosen["ion"] + " is not a common oxidation state of " + chosen["element"] + " (mendeleev)"
+
     return placements[~bad], rejected_ions(placements, bad, RULE, placements["charge"], None, detail)

@@ -25,7 +25,9 @@ def apply_radioactive(placements: pd.DataFrame, thresholds: dict) -> tuple[pd.Da
     radioactive = placements["element"].map(ions.load_ion_data().elements["radioactive"]).astype(bool).to_numpy(copy=True)
     if not thresholds["exclude_radioactive"]:
         radioactive[:] = False
-    detail = placements["element"] + " is radioactive (mendeleev)"
+    def detail(rows):
+        return placements["element"].iloc[rows] + " is radioactive (mendeleev)"
+
     return placements[~radioactive], rejected_ions(placements, radioactive, "radioactive", 1.0, 0.0, detail)
 
 
@@ -38,9 +40,11 @@ def apply_abundance(placements: pd.DataFrame, thresholds: dict) -> tuple[pd.Data
                                 context="scarcity rule 'min_crust_ppm'")
     abundance = placements["element"].map(ions.load_ion_data().elements["abundance_crust_ppm"]).to_numpy(float)
     scarce = abundance < float(floor)
-    detail = (placements["element"] + " crustal abundance "
-              + pd.Series(abundance, index=placements.index).map(lambda a: f"{a:.3g}")
-              + f" ppm < {float(floor):g} ppm")
+    def detail(rows):
+        # the sentence is formatted for the rejected rows only (a Python format per row)
+        return (placements["element"].iloc[rows].to_numpy(object) + " crustal abundance "
+                + np.array([f"{a:.3g}" for a in abundance[rows]], dtype=object) + f" ppm < {float(floor):g} ppm")
+
     return placements[~scarce], rejected_ions(placements, scarce, "abundance", abundance, float(floor), detail)
 
 
