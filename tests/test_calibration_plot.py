@@ -61,3 +61,16 @@ def test_bad_figure_path_is_one_line_exit_2(tmp_path, capsys, name, words):
     err = capsys.readouterr().err
     assert code == 2
     assert err.count("\n") == 1 and err.startswith("screening: error: ") and words in err
+
+
+def test_readme_figure_is_current():
+    # The README shows docs/figures/calibration.png; its SVG twin carries the title text.  After an edit of
+    # the reference table, regenerate with: screening calibration --figure docs/figures/calibration.png
+    from pathlib import Path
+
+    root = Path(__file__).resolve().parents[1]
+    svg = (root / "docs" / "figures" / "calibration.svg").read_text(encoding="utf-8")
+    cal = calibration.fit_calibration()
+    assert f"leave-one-out MAE {cal.loo_mae_v:.2f} V, RMSE {cal.loo_rmse_v:.2f} V" in svg
+    assert f"n = {cal.n}" in svg
+    assert "docs/figures/calibration.png" in (root / "README.md").read_text(encoding="utf-8")
