@@ -159,8 +159,15 @@ class EarlyWorkflow:
     def release(self, argv: list[str]) -> subprocess.Popen:
         """Hand over Snakemake's arguments and this process's environment as it is now."""
         message = json.dumps({"argv": list(argv), "environ": dict(os.environ)})
-        self.process.stdin.write(message + "\n")
-        self.process.stdin.close()
+        try:
+            self.process.stdin.write(message + "\n")
+            self.process.stdin.close()
+        except (BrokenPipeError, OSError):
+            # it ended on its own while the input was checked: a broken install, say; show why
+            code = self.process.wait()
+            said = self.process.stdout.read().strip()
+            raise ScreeningError(f"the Snakemake process ended (exit {code}) before it was given its arguments"
+                                 + (f": {said[-800:]}" if said else "")) from None
         return self.process
 
     def discard(self) -> None:

@@ -13,6 +13,8 @@ import sys
 import threading
 import time
 
+import pytest
+
 from screening import progress, snakemake_main
 
 
@@ -94,3 +96,14 @@ def test_snakemake_failure_status_is_passed_on(tmp_path):
     out, _ = process.communicate(json.dumps({"argv": ["--nonsense-option"], "environ": {}}) + "\n", timeout=120)
     # Snakemake's argparse refuses an unknown option with status 2 (argparse's documented usage-error code)
     assert process.returncode == 2, out
+
+
+def test_release_to_a_process_that_already_ended_is_a_clear_error(tmp_path, monkeypatch):
+    from screening.errors import ScreeningError
+
+    monkeypatch.chdir(tmp_path)
+    early = progress.EarlyWorkflow()
+    early.process.kill()
+    early.process.wait()
+    with pytest.raises(ScreeningError, match="ended .* before it was given its arguments"):
+        early.release(["--version"])
