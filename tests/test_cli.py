@@ -50,3 +50,15 @@ def test_run_with_bad_rule_set_writes_nothing(tmp_path, capsys):
     assert cli.main(["run", "--rules", str(rules), "--out", str(out)]) == 2
     assert "hosts" in capsys.readouterr().err
     assert not out.exists()
+
+
+def test_shard_advice_only_for_local_runs_with_many_shards():
+    # The threshold is the project's own measurement (README "Speed and scale": 1,000 hosts on 2 cores took
+    # 93-114 s in 40 shards and 40-68 s in 8), not an outside value: the check is of the arithmetic.
+    note = cli.shard_advice(1000, 25, 2, "")
+    assert note is not None and "40 shards of 25 hosts" in note and "about 125" in note  # ceil(1000 / 8)
+    assert cli.shard_advice(25, 7, 2, "") is None          # the default screen: 4 shards
+    assert cli.shard_advice(160, 10, 2, "") is None        # 16 shards = twice the advice: still quiet
+    assert cli.shard_advice(170, 10, 2, "") is not None    # 17
+    assert cli.shard_advice(1000, 25, 2, "--profile workflow/profiles/slurm") is None
+    assert cli.shard_advice(1000, 25, 2, "--executor slurm") is None
