@@ -15,7 +15,7 @@ ratio    candidates per second through enumeration and the charge, radius and
 scaling  the whole workflow (``screening run``) on synthetic host libraries of
          10, 100 and 1,000 hosts, with wall time and peak memory (largest
          resident set of the child processes, from ``resource``); shard size
-         from ``local_shard_size`` (about 4 shards a core).  A synthetic
+         from ``screening.shards.local_shard_size`` (about 4 shards a core).  A synthetic
          library repeats the hosts of ``candidates/hosts.yaml`` in order, each
          copy with the id ``<id>-s<k>`` and its gap moved by a fixed, repeating
          offset (-0.2 to +0.2 eV in 0.05 eV steps), so that per-host work is that
@@ -150,20 +150,9 @@ def part_ratio(n_hosts: int) -> dict:
     return result
 
 
-SHARDS_PER_CORE = 4
-
-
-def local_shard_size(n_hosts: int, cores: int) -> int:
-    """Shard size for a run on one machine: about SHARDS_PER_CORE shards a core (at least 7 hosts a shard).
-
-    Snakemake's own cost per job grows with the number of jobs (it re-checks the files of the whole
-    workflow as jobs finish), so one machine wants few, large shards: 1,000 hosts took 114 s with
-    40 shards of 25 hosts and 40 s with 8 shards of 125 on the 2-core machine (README, "Speed and scale").
-    """
-    return max(7, -(-n_hosts // (SHARDS_PER_CORE * cores)))
-
-
 def part_scaling(sizes: list[int], cores: int) -> list[dict]:
+    from screening import shards
+
     available = available_memory_mb()
     for n in sizes:
         estimate = MEMORY_BASE_MB + MEMORY_PER_HOST_MB * n
@@ -176,7 +165,7 @@ def part_scaling(sizes: list[int], cores: int) -> list[dict]:
         with tempfile.TemporaryDirectory() as tmp:
             tmp = Path(tmp)
             hosts_file = synthetic_library(n, tmp / "hosts.yaml")
-            rules = rules_copy(tmp, hosts_file, name=f"scale{n}", workflow__shard_size=local_shard_size(n, cores))
+            rules = rules_copy(tmp, hosts_file, name=f"scale{n}", workflow__shard_size=shards.local_shard_size(n, cores))
             wall, peak, code = timed_child([str(BIN / "screening"), "run", "--rules", str(rules), "--out",
                                             str(tmp / "out"), "--cores", str(cores)])
             rows = sum(1 for _ in open(tmp / "out" / "shortlist.csv")) - 1 if code == 0 else -1

@@ -177,22 +177,20 @@ def _run_checked(args, early) -> int:
     return 0
 
 
-LOCAL_SHARDS_PER_CORE = 4
-"""About this many shards a core run fastest on one machine: Snakemake's cost per job grows with the
-number of jobs (1,000 hosts: 93-114 s in 40 shards, 40-68 s in 8 on 2 cores; README "Speed and scale")."""
-
-
 def shard_advice(n_hosts: int, shard_size: int, cores: int, snakemake_args: str) -> str | None:
-    """A note when a local run has many more shards than its cores need; None otherwise (and on a cluster)."""
+    """A note when a local run has over twice the shards of :func:`screening.shards.local_shard_size`;
+    None otherwise, and for cluster runs (a profile or an executor)."""
+    from screening import shards
+
     if any(flag in snakemake_args for flag in ("--profile", "--executor", "-e ")):
         return None
-    shards = -(-n_hosts // shard_size)
-    if shards <= 2 * LOCAL_SHARDS_PER_CORE * cores:
+    better = shards.local_shard_size(n_hosts, cores)
+    count = shards.shard_count(n_hosts, shard_size)
+    if count <= 2 * shards.shard_count(n_hosts, better):
         return None
-    better = -(-n_hosts // (LOCAL_SHARDS_PER_CORE * cores))
-    return (f"screening: note: {shards} shards of {shard_size} hosts on {cores} core(s); on one machine about "
-            f"{LOCAL_SHARDS_PER_CORE * cores} run faster (Snakemake's cost per job grows with the number of "
-            f"jobs): set workflow.shard_size to about {better} in the rule set")
+    return (f"screening: note: {count} shards of {shard_size} hosts on {cores} core(s); on one machine about "
+            f"{shards.shard_count(n_hosts, better)} run faster (Snakemake's cost per job grows with the number "
+            f"of jobs): set workflow.shard_size to about {better} in the rule set")
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -28,6 +28,7 @@ from screening import bands, enumerate as enum, hosts as hostlib, pools, solar
 from screening.filters import charge_balance, empty_rejected, oxidation_state, radius_mismatch
 from screening.filters import scarcity as scarcity_rules
 from screening.files import atomic_write
+from screening.shards import shard_count
 
 FUNNEL_COLUMNS = ["host", "rule", "enumerated", "candidates_in", "candidates_out", "removed"]
 log = logging.getLogger("screening")
@@ -75,10 +76,6 @@ def write_json(document, path) -> None:
 
 
 # --- stage 1: hosts ----------------------------------------------------------------------
-
-def shard_count(n_hosts: int, shard_size: int) -> int:
-    return max(1, -(-n_hosts // shard_size))
-
 
 def prepare_hosts(hosts_file, shard_size: int, out_json, structures=None) -> list[hostlib.Host]:
     """Checked hosts in shards; ``structures``: the rule set's CIF file or folder (issue 4), or None."""
