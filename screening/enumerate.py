@@ -12,6 +12,10 @@ alone by electrons where the rule set allows it.
 The work is split in two so that no pair is ever built from an ion that a
 single-ion rule already removed:
 
+* :func:`site_types` -- the distinct sites of a shard's hosts: the single-ion rules depend
+  on the ion and the site alone (label, element, charge, coordination, radius), so they
+  judge each ion once per distinct site, and :func:`expand_to_hosts` hands the result to
+  every host site of that type (all titanates share one Ti4+(VI) site);
 * :func:`placements` -- every pool ion on every cation site (vectorised cross join);
   :func:`anion_placements` -- the rule set's anion dopants (N3-, F-, S2-, Cl-) on the
   oxide-ion site, in the same frame layout, so that N_O′ pairs with a donor such
@@ -75,7 +79,14 @@ def anion_sites_frame(hosts: list[Host]) -> pd.DataFrame:
 
 
 def anion_placements(hosts: list[Host], elements) -> pd.DataFrame:
-    """The anion dopants ``elements`` (keys of :data:`ANION_DOPANT_CHARGE`) on each host's oxide-ion site.
+    """The anion dopants ``elements`` on each host's oxide-ion site (see :func:`anion_site_placements`)."""
+    return anion_site_placements(anion_sites_frame(hosts), elements)
+
+
+def anion_site_placements(anion_sites: pd.DataFrame, elements) -> pd.DataFrame:
+    """The anion dopants ``elements`` (keys of :data:`ANION_DOPANT_CHARGE`) on oxide-ion sites.
+
+    ``anion_sites``: from :func:`anion_sites_frame` (or distinct anion sites of :func:`site_types`).
 
     Radii are Shannon's at the anion site's coordination.  Shannon tabulates N3-
     (IV) and S2- (VI) at one coordination only, so the straight-line estimate of
@@ -93,7 +104,7 @@ def anion_placements(hosts: list[Host], elements) -> pd.DataFrame:
     states = ions.load_ion_data().states.set_index(["element", "charge"])["common"]
     common = [bool(states.get((e, q), False)) for e, q in zip(elements, charges)]
     pool = pd.DataFrame({"element": elements, "charge": charges, "common": common})
-    crossed = placements(anion_sites_frame(hosts), pool).drop(columns=["delta", "mismatch", "ion"])
+    crossed = placements(anion_sites, pool).drop(columns=["delta", "mismatch", "ion"])
 
     table = ions.load_ion_data().radii
     plain = table[table["geometry"] == ""]
@@ -113,6 +124,51 @@ def anion_placements(hosts: list[Host], elements) -> pd.DataFrame:
         crossed.loc[scale, "radius_a"] = r_tab * r_o_site["radius_a"].to_numpy() / r_o_tab["radius_a"].to_numpy()
         crossed.loc[scale, "radius_estimated"] = True
     return _finish_placements(crossed)
+
+
+SITE_TYPE_COLUMNS = ["site", "site_element", "site_charge", "coordination", "site_radius_a"]
+"""What a single-ion rule may look at of a site; the rest (host, multiplicity, gap) is the host's."""
+
+
+def site_types(sites: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """The distinct sites of ``sites`` (rows of :func:`screening.hosts.sites_frame` or
+    :func:`anion_sites_frame`), and which host sites are of which type.
+
+    Returns ``(types, members)``.  ``types`` has the layout of ``sites`` with ``host``
+    holding the integer type number (multiplicity and gap are those of the type's first
+    host and are replaced on expansion); ``members`` has one row per host site, in
+    (host, site) order, with its ``site_type``.
+    """
+    members = sites.sort_values(["host", "site"], kind="stable").reset_index(drop=True)
+    members["site_type"] = members.groupby(SITE_TYPE_COLUMNS, sort=False, dropna=False).ngroup().astype(np.int64)
+    types = members.drop_duplicates("site_type").sort_values("site_type")
+    types = types.assign(host=types["site_type"]).drop(columns="site_type").reset_index(drop=True)
+    return types, members
+
+
+def expand_to_hosts(frame: pd.DataFrame, members: pd.DataFrame) -> pd.DataFrame:
+    """The rows of a per-site-type ``frame`` (``host`` = type number, rows grouped by type in
+    ascending order, as :func:`placements` and the rules leave them) repeated for every host
+    site of that type, in (host, site, row) order: the order of placements built host by host.
+    ``host`` becomes the host id; ``multiplicity`` and ``host_gap_ev``, where present, the host's.
+    """
+    row_type = frame["host"].to_numpy(np.int64)
+    if np.any(np.diff(row_type) < 0):
+        raise AssertionError("expand_to_hosts needs the rows grouped by site type in ascending order")
+    member_type = members["site_type"].to_numpy(np.int64)
+    per_type = np.bincount(row_type, minlength=int(member_type.max(initial=-1)) + 1)
+    first_row = np.cumsum(per_type) - per_type
+    lengths = per_type[member_type]
+    # row k of the result: the (k - start of its member)-th row of its member's type
+    member_start = np.cumsum(lengths) - lengths
+    index = (np.arange(int(lengths.sum())) - np.repeat(member_start, lengths)
+             + np.repeat(first_row[member_type], lengths))
+    expanded = frame.take(index).reset_index(drop=True)
+    expanded["host"] = np.repeat(members["host"].to_numpy(), lengths)
+    for column in ("multiplicity", "host_gap_ev"):
+        if column in expanded:
+            expanded[column] = np.repeat(members[column].to_numpy(), lengths)
+    return expanded
 
 
 def _ion_labels(elements: pd.Series, charges: pd.Series) -> pd.Series:
@@ -135,14 +191,15 @@ def _kv(element: pd.Series, site: pd.Series, delta: pd.Series) -> pd.Series:
     return element.astype(str) + "_" + site.astype(str) + _charge_marks(delta)
 
 
-def _coefficient(n) -> pd.Series:
-    """'' for one, 'n ' otherwise: the count written before a defect."""
-    n = pd.Series(n) if not isinstance(n, pd.Series) else n
-    return (n.astype(str) + " ").where(n != 1, "")
+_COUNTS = np.array([""] + [f"{n} " if n != 1 else "" for n in range(1, 2 * _MAX_MARKS + 1)], dtype=object)
+# _COUNTS[n]: the count written before n defects of a kind ('' for one); a look-up, not a format per row
 
 
 _PLACEMENT_COLUMNS = ["host", "site", "site_element", "site_charge", "coordination", "multiplicity",
                       "element", "charge", "ion", "delta", "radius_a", "radius_estimated", "spin", "mismatch"]
+_LABEL_COLUMNS = ["kv", "tag"]
+"""Per-placement text (Kröger–Vink defect, ion@site) that _finish assembles into each candidate's
+defects and id: written once per placement rather than once per candidate."""
 
 
 def combine(kept: pd.DataFrame, enumeration: dict, dopant_fraction: Fraction) -> pd.DataFrame:
@@ -155,7 +212,7 @@ def combine(kept: pd.DataFrame, enumeration: dict, dopant_fraction: Fraction) ->
     allowed compensation) are still returned, with ``compensation == 'none'``;
     the charge-balance rule removes them with a record.
     """
-    kept = kept[_PLACEMENT_COLUMNS]
+    kept = _labelled(kept[_PLACEMENT_COLUMNS])
     frames = []
     if enumeration["singles"]:
         frames.append(_singles(kept, enumeration))
@@ -164,7 +221,18 @@ def combine(kept: pd.DataFrame, enumeration: dict, dopant_fraction: Fraction) ->
     candidates = pd.concat(frames, ignore_index=True) if frames else pd.DataFrame()
     if candidates.empty:
         return _no_candidates(dopant_fraction)
-    return _finish(candidates, dopant_fraction)
+    return _finish(candidates[[c for c in _CANDIDATE_COLUMNS if c in candidates]], dopant_fraction)
+
+
+_CANDIDATE_COLUMNS = (["host"] + [f"dopant_{c}" for c in _PLACEMENT_COLUMNS[1:] + _LABEL_COLUMNS]
+                      + ["kind", "n_dopant", "n_codopant", "compensation"]
+                      + [f"codopant_{c}" for c in _PLACEMENT_COLUMNS[1:] + _LABEL_COLUMNS])
+"""Column order of a candidate table before :func:`_finish` adds its columns."""
+
+
+def _labelled(placed: pd.DataFrame) -> pd.DataFrame:
+    return placed.assign(kv=_kv(placed["element"], placed["site"], placed["delta"]),
+                         tag=placed["ion"] + "@" + placed["site"])
 
 
 def _no_candidates(dopant_fraction: Fraction) -> pd.DataFrame:
@@ -174,14 +242,21 @@ def _no_candidates(dopant_fraction: Fraction) -> pd.DataFrame:
     one acceptor and one donor placeholder and then emptied: the rules downstream
     see the same schema whether or not anything survived.
     """
-    placeholder = pd.DataFrame({
+    placeholder = _labelled(pd.DataFrame({
         "host": ["-", "-"], "site": ["Ti", "Ti"], "site_element": ["Ti", "Ti"], "site_charge": [4, 4],
         "coordination": [6, 6], "multiplicity": [1, 1], "element": ["Cr", "Nb"], "charge": [3, 5],
         "ion": ["Cr3+", "Nb5+"], "delta": [-1, 1], "radius_a": [0.615, 0.64], "radius_estimated": [False, False],
-        "spin": ["", ""], "mismatch": [0.0, 0.0]})
+        "spin": ["", ""], "mismatch": [0.0, 0.0]}))
     options = {"singles": True, "pairs": True, "vacancy_compensation": True, "electron_compensation": True}
     frames = [_singles(placeholder, options), _pairs(placeholder)]
     return _finish(pd.concat(frames, ignore_index=True), dopant_fraction).iloc[0:0].reset_index(drop=True)
+
+
+_SINGLE_CODOPANT = {"codopant_site": "", "codopant_element": "", "codopant_ion": "", "codopant_kv": "",
+                    "codopant_tag": "", "codopant_charge": 0, "codopant_delta": 0, "codopant_multiplicity": 0,
+                    "codopant_site_charge": 0, "codopant_coordination": 0, "codopant_mismatch": np.nan,
+                    "codopant_radius_a": np.nan, "codopant_radius_estimated": False}
+"""The codopant columns of a single (none); the other codopant columns stay missing (NaN)."""
 
 
 def _singles(kept: pd.DataFrame, enumeration: dict) -> pd.DataFrame:
@@ -196,7 +271,7 @@ def _singles(kept: pd.DataFrame, enumeration: dict) -> pd.DataFrame:
          (delta > 0) & enumeration["electron_compensation"]],
         ["isovalent", "oxygen_vacancy", "electrons"], default="none")
     singles["compensation"] = compensation
-    return singles
+    return singles.assign(**_SINGLE_CODOPANT)
 
 
 def _pairs(kept: pd.DataFrame) -> pd.DataFrame:
@@ -215,16 +290,7 @@ def _pairs(kept: pd.DataFrame) -> pd.DataFrame:
 
 def _finish(c: pd.DataFrame, x: Fraction) -> pd.DataFrame:
     """Ratios, site fractions, exact amounts, Kröger–Vink defects, ids."""
-    pair = c["kind"] == "pair"
-    for column in ("codopant_site", "codopant_element", "codopant_ion"):
-        c[column] = c[column].fillna("").astype(str) if column in c else ""
-    for column in ("codopant_charge", "codopant_delta", "codopant_multiplicity", "codopant_site_charge",
-                   "codopant_coordination"):
-        c[column] = c[column].fillna(0).astype(np.int64) if column in c else 0
-    for column in ("codopant_mismatch", "codopant_radius_a"):
-        c[column] = c[column].astype(float) if column in c else np.nan
-    c["codopant_radius_estimated"] = (c["codopant_radius_estimated"].fillna(False).astype(bool)
-                                      if "codopant_radius_estimated" in c else False)
+    pair = c["kind"].eq("pair").to_numpy()
     c["n_dopant"] = c["n_dopant"].astype(np.int64)
     c["n_codopant"] = c["n_codopant"].astype(np.int64)
 
@@ -233,35 +299,57 @@ def _finish(c: pd.DataFrame, x: Fraction) -> pd.DataFrame:
     m_d = c["dopant_multiplicity"].to_numpy(np.int64)
     n_d = c["n_dopant"].to_numpy(np.int64)
     n_c = c["n_codopant"].to_numpy(np.int64)
+    delta_d = c["dopant_delta"].to_numpy(np.int64)
     den = np.int64(x.denominator) * n_d * 2
     c["amount_den"] = den
     c["dopant_num"] = np.int64(x.numerator) * m_d * n_d * 2
     c["codopant_num"] = np.int64(x.numerator) * m_d * n_c * 2
-    vacancy = c["compensation"].eq("oxygen_vacancy").to_numpy()
+    compensation = c["compensation"].to_numpy(object)
+    vacancy = compensation == "oxygen_vacancy"
+    electrons = compensation == "electrons"
     # one V_O per two negative units: |delta| * dopant amount / 2
-    c["vacancy_num"] = np.where(vacancy, np.int64(x.numerator) * m_d * n_d * (-c["dopant_delta"].to_numpy()), 0)
+    c["vacancy_num"] = np.where(vacancy, np.int64(x.numerator) * m_d * n_d * -delta_d, 0)
     c["dopant_fraction"] = c["dopant_num"] / c["amount_den"] / c["dopant_multiplicity"]
     c["codopant_fraction"] = np.where(pair, c["codopant_num"] / c["amount_den"]
                                       / c["codopant_multiplicity"].where(pair, 1), 0.0)
-    c["ratio"] = np.where(pair, c["n_dopant"].astype(str) + ":" + c["n_codopant"].astype(str), "")
+    c["ratio"] = _ratio_texts(n_d, n_c, pair)
     c["max_ratio_count"] = np.maximum(c["n_dopant"], c["n_codopant"])
 
-    dopant_kv = _kv(c["dopant_element"], c["dopant_site"], c["dopant_delta"])
-    codopant_kv = _kv(c["codopant_element"], c["codopant_site"], c["codopant_delta"])
+    # each kind of candidate writes its own defect set, built for its rows only
+    dopant_kv = c.pop("dopant_kv").to_numpy(object)
+    codopant_kv = c.pop("codopant_kv").to_numpy(object)
+    defects = dopant_kv.copy()
+    defects[pair] = _COUNTS[n_d[pair]] + dopant_kv[pair] + " + " + _COUNTS[n_c[pair]] + codopant_kv[pair]
     # an acceptor of |delta| = a with vacancies: the smallest neutral set is (2/g) M + (a/g) V_O, g = gcd(a, 2)
-    a = np.where(vacancy, -c["dopant_delta"].to_numpy(np.int64), 1)
+    a = -delta_d[vacancy]
     g = np.gcd(a, 2)
-    with_vacancies = (_coefficient(pd.Series(2 // g, index=c.index)) + dopant_kv + " + "
-                      + _coefficient(pd.Series(a // g, index=c.index)) + "V_O••")
-    with_electrons = dopant_kv + " + " + c["dopant_delta"].astype(str) + " e′"
-    c["defects"] = np.select(
-        [pair.to_numpy(), vacancy, c["compensation"].eq("electrons").to_numpy()],
-        [_coefficient(c["n_dopant"]) + dopant_kv + " + " + _coefficient(c["n_codopant"]) + codopant_kv,
-         with_vacancies, with_electrons], default=dopant_kv)
-    c["candidate_id"] = (c["host"] + "/" + c["dopant_ion"] + "@" + c["dopant_site"]
-                         + np.where(pair, "+" + c["codopant_ion"] + "@" + c["codopant_site"],
-                                    np.where(vacancy, "+V_O", "")))
+    defects[vacancy] = _COUNTS[2 // g] + dopant_kv[vacancy] + " + " + _COUNTS[a // g] + "V_O••"
+    defects[electrons] = dopant_kv[electrons] + " + " + delta_d[electrons].astype(str).astype(object) + " e′"
+    c["defects"] = pd.array(defects, dtype="str")
+    suffix = np.where(pair, "+" + c.pop("codopant_tag").to_numpy(object), np.where(vacancy, "+V_O", ""))
+    c["candidate_id"] = pd.array(c["host"].to_numpy(object) + "/" + c.pop("dopant_tag").to_numpy(object) + suffix,
+                                 dtype="str")
     return c.sort_values("candidate_id", kind="stable").reset_index(drop=True)
+
+
+def _ratio_texts(n_dopant: np.ndarray, n_codopant: np.ndarray, pair: np.ndarray) -> np.ndarray:
+    """'n_d:n_c' for pairs, '' otherwise: each distinct ratio written once."""
+    codes, first, inverse = np.unique(np.stack([n_dopant, n_codopant], axis=1), axis=0, return_index=True,
+                                      return_inverse=True)
+    texts = np.array([f"{d}:{c}" for d, c in codes], dtype=object)
+    return np.where(pair, texts[inverse.ravel()] if len(codes) else "", "")
+
+
+def positions(values: pd.Series, labels) -> np.ndarray:
+    """Position of each of ``values`` among ``labels``, which must hold them all.
+
+    A hash look-up over the whole column; ``Series.map`` with a dict walks arrow
+    strings one Python object at a time, and was most of the composition step.
+    """
+    found = pd.Index(labels).get_indexer(values)
+    if np.any(found < 0):
+        raise AssertionError(f"not among the labels: {sorted(set(values[found < 0]))[:5]}")
+    return found.astype(np.int64)
 
 
 def candidate_amounts(candidates: pd.DataFrame, hosts: dict[str, Host]) -> pd.DataFrame:
@@ -270,7 +358,7 @@ def candidate_amounts(candidates: pd.DataFrame, hosts: dict[str, Host]) -> pd.Da
     Built from the host's composition with the exact substitution amounts.
     """
     elements = sorted({e for h in hosts.values() for e in h.composition()}
-                      | set(candidates["dopant_element"]) | (set(candidates["codopant_element"]) - {""}))
+                      | set(candidates["dopant_element"].unique()) | (set(candidates["codopant_element"].unique()) - {""}))
     matrix = np.zeros((len(candidates), len(elements)))
     column = {e: i for i, e in enumerate(elements)}
     host_matrix = np.zeros((len(hosts), len(elements)))
@@ -279,8 +367,7 @@ def candidate_amounts(candidates: pd.DataFrame, hosts: dict[str, Host]) -> pd.Da
         host_row[host_id] = i
         for element, amount in host.composition().items():
             host_matrix[i, column[element]] = float(amount)
-    # integer indices even for an empty frame (a rule may have removed every candidate)
-    rows = candidates["host"].map(host_row).to_numpy(np.int64)
+    rows = positions(candidates["host"], list(host_row))
     matrix[:] = host_matrix[rows]
     index = np.arange(len(candidates))
     den = candidates["amount_den"].to_numpy(float)
@@ -288,13 +375,13 @@ def candidate_amounts(candidates: pd.DataFrame, hosts: dict[str, Host]) -> pd.Da
     codopant = candidates["codopant_num"].to_numpy(float) / den
     vacancy = candidates["vacancy_num"].to_numpy(float) / den
     # np.add.at accumulates where a dopant replaces its own element's other site
-    np.add.at(matrix, (index, candidates["dopant_site_element"].map(column).to_numpy(np.int64)), -dopant)
-    np.add.at(matrix, (index, candidates["dopant_element"].map(column).to_numpy(np.int64)), dopant)
+    np.add.at(matrix, (index, positions(candidates["dopant_site_element"], elements)), -dopant)
+    np.add.at(matrix, (index, positions(candidates["dopant_element"], elements)), dopant)
     pair = candidates["kind"].eq("pair").to_numpy()
     if pair.any():
-        np.add.at(matrix, (index[pair], candidates.loc[pair, "codopant_site_element"].map(column).to_numpy(np.int64)),
+        np.add.at(matrix, (index[pair], positions(candidates.loc[pair, "codopant_site_element"], elements)),
                   -codopant[pair])
-        np.add.at(matrix, (index[pair], candidates.loc[pair, "codopant_element"].map(column).to_numpy(np.int64)),
+        np.add.at(matrix, (index[pair], positions(candidates.loc[pair, "codopant_element"], elements)),
                   codopant[pair])
     if "O" in column:
         matrix[:, column["O"]] -= vacancy

@@ -90,11 +90,15 @@ def site_averaged(candidates: pd.DataFrame, hosts: dict[str, Host], families) ->
     """
     table = host_table(hosts, families).set_index("host")
     out = pd.DataFrame(index=candidates.index)
-    applies = candidates["host"].isin(table.index).to_numpy()
+    # one hash look-up of the host column (Series.map walks arrow strings in Python)
+    row = table.index.get_indexer(candidates["host"])
+    applies = row >= 0
     out["applies"] = applies
     columns = {}
     for column in ("a_site", "b_site", "x_site", "r_a", "r_b", "r_x", "n_a"):
-        columns[column] = candidates["host"].map(table[column]).to_numpy()
+        values = table[column].to_numpy(dtype=object if column.endswith("_site") else float)
+        missing = None if column.endswith("_site") else np.nan
+        columns[column] = np.where(applies, values[row] if len(values) else missing, missing)
     r = {"a": columns["r_a"].astype(float), "b": columns["r_b"].astype(float), "x": columns["r_x"].astype(float)}
     n_a = columns["n_a"].astype(float)
     host_r = dict(r)

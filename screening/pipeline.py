@@ -106,16 +106,29 @@ def read_hosts(hosts_json, shard: int | None = None) -> dict[str, hostlib.Host]:
 
 # --- stage 2: enumerate and filter -------------------------------------------------------
 
-def _implied_count(placements: pd.DataFrame, host_ids, enumeration: dict) -> pd.Series:
-    """Candidates a set of placements would give, per host, without building the pairs."""
-    count = pd.Series(0, index=list(host_ids), dtype=np.int64)
+def _implied_count(placed_types: pd.DataFrame, members: pd.DataFrame, host_ids, enumeration: dict) -> pd.Series:
+    """Candidates per host that per-site-type placements would give, without building the pairs.
+
+    ``placed_types``: placements of :func:`screening.enumerate.site_types` (``host`` = type number);
+    ``members``: the host sites of each type.  A host's singles are its placements; its pairs are
+    its acceptors times its donors, over all of its sites.
+    """
+    n_types = len(members) and int(members["site_type"].max()) + 1
+    row_type = placed_types["host"].to_numpy(np.int64)
+    delta = placed_types["delta"].to_numpy(np.int64)
+    member_type = members["site_type"].to_numpy(np.int64)
+    host_of_member = pd.Index(list(host_ids)).get_indexer(members["host"])
+
+    def per_host(mask) -> np.ndarray:
+        per_type = np.bincount(row_type[mask], minlength=n_types)
+        return np.bincount(host_of_member, weights=per_type[member_type], minlength=len(host_ids)).astype(np.int64)
+
+    count = np.zeros(len(host_ids), dtype=np.int64)
     if enumeration["singles"]:
-        count = count.add(placements.groupby("host").size(), fill_value=0)
+        count += per_host(np.ones(len(row_type), dtype=bool))
     if enumeration["pairs"]:
-        acceptors = placements[placements["delta"] < 0].groupby("host").size()
-        donors = placements[placements["delta"] > 0].groupby("host").size()
-        count = count.add(acceptors.mul(donors, fill_value=0), fill_value=0)
-    return count.astype(np.int64)
+        count += per_host(delta < 0) * per_host(delta > 0)
+    return pd.Series(count, index=list(host_ids), dtype=np.int64)
 
 
 def _funnel_rows(rule: str, before: pd.Series, after: pd.Series) -> pd.DataFrame:
@@ -129,15 +142,23 @@ def screen_shard(hosts_json, shard: int, pool_file, enumeration: dict, filters: 
     hosts = read_hosts(hosts_json, shard)
     host_ids = sorted(hosts)
     pool = pools.pool_ions(pools.load_pool(pool_file))
-    placed = enum.placements(hostlib.sites_frame(list(hosts.values())), pool)
-    if enumeration.get("anion_dopants"):
+    host_list = list(hosts.values())
+    sites = hostlib.sites_frame(host_list)
+    anion_dopants = enumeration.get("anion_dopants")
+    if anion_dopants:
         # issue 4: N3-, F-, S2- on the oxide-ion site, screened by the same single-ion rules
-        anion = enum.anion_placements(list(hosts.values()), enumeration["anion_dopants"])
+        sites = pd.concat([sites, enum.anion_sites_frame(host_list)], ignore_index=True)
+    # the single-ion rules judge each ion once per distinct site, not once per host
+    types, members = enum.site_types(sites)
+    cation_types = types["site_charge"].to_numpy() > 0
+    placed = enum.placements(types[cation_types], pool)
+    if anion_dopants:
+        anion = enum.anion_site_placements(types[~cation_types], anion_dopants)
         placed = (pd.concat([placed, anion], ignore_index=True)
                   .sort_values(enum.PLACEMENT_KEY).reset_index(drop=True))
 
     funnel, rejected = [], []
-    count = _implied_count(placed, host_ids, enumeration)
+    count = _implied_count(placed, members, host_ids, enumeration)
     enumerated = count
     for rule, apply_rule in (
             ("oxidation_state", lambda p: oxidation_state.apply(p, filters["oxidation_state"])),
@@ -145,10 +166,11 @@ def screen_shard(hosts_json, shard: int, pool_file, enumeration: dict, filters: 
             ("radioactive", lambda p: scarcity_rules.apply_radioactive(p, scarcity)),
             ("abundance", lambda p: scarcity_rules.apply_abundance(p, scarcity))):
         placed, removed = apply_rule(placed)
-        rejected.append(removed)
-        new_count = _implied_count(placed, host_ids, enumeration)
+        rejected.append(enum.expand_to_hosts(removed, members))
+        new_count = _implied_count(placed, members, host_ids, enumeration)
         funnel.append(_funnel_rows(rule, count, new_count))
         count = new_count
+    placed = enum.expand_to_hosts(placed, members)
 
     dopant_fraction = Fraction(str(enumeration["dopant_fraction"]))
     candidates = enum.combine(placed, enumeration, dopant_fraction)

@@ -299,13 +299,21 @@ def _require(facts: pd.DataFrame, present: pd.DataFrame, columns: list[str]) -> 
 
 
 def _joined_where(mask: pd.DataFrame) -> pd.Series:
-    """';'-joined column names (sorted) where mask is True, per row; '' if none."""
+    """';'-joined column names (sorted) where mask is True, per row; '' if none.
+
+    Rows share few patterns (a screen's candidates list the same one or two critical
+    elements over and over), so each distinct row pattern is joined once.
+    """
     ordered = mask[sorted(mask.columns)]
-    labels = pd.Series([f"{c};" for c in ordered.columns], index=ordered.columns, dtype=object)
-    joined = ordered.astype(object).dot(labels) if len(ordered.columns) else pd.Series("", index=mask.index)
-    # a row with no True gives 0 (int) from the object dot product
-    joined = joined.where(ordered.any(axis=1), "")
-    return joined.astype(str).str.rstrip(";")
+    bits = ordered.to_numpy(dtype=bool)
+    if bits.shape[1] == 0 or len(bits) == 0:
+        return pd.Series("", index=mask.index, dtype="str")
+    packed = np.ascontiguousarray(np.packbits(bits, axis=1))
+    row_keys = packed.view(np.dtype((np.void, packed.shape[1]))).ravel()
+    _, first, inverse = np.unique(row_keys, return_index=True, return_inverse=True)
+    names = np.asarray(ordered.columns, dtype=object)
+    labels = np.array([";".join(names[bits[row]]) for row in first], dtype=object)
+    return pd.Series(labels[inverse.ravel()], index=mask.index, dtype="str")
 
 
 def composition_metrics(amounts: pd.DataFrame) -> pd.DataFrame:

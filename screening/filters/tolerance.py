@@ -40,10 +40,10 @@ def apply(candidates: pd.DataFrame, hosts: dict, thresholds: dict) -> tuple[pd.D
     value = np.where(too_low | too_high, t, tau)
     threshold = np.select([too_low, too_high], [np.nan if low is None else low, np.nan if high is None else high],
                           default=np.nan if tau_max is None else tau_max)
-    t_text = pd.Series(t, index=candidates.index).map(lambda v: f"{v:.3f}")
-    tau_text = pd.Series(tau, index=candidates.index).map(lambda v: f"{v:.2f}")
-    detail = np.select(
-        [too_low, too_high],
-        ["Goldschmidt t " + t_text + f" < {low}", "Goldschmidt t " + t_text + f" > {high}"],
-        default="Bartel tau " + tau_text + f" >= {tau_max} (not predicted a perovskite)")
+    def detail(rows):
+        # sentences for the rejected rows only (a Python format per row)
+        return [f"Goldschmidt t {t[i]:.3f} < {low}" if too_low[i]
+                else f"Goldschmidt t {t[i]:.3f} > {high}" if too_high[i]
+                else f"Bartel tau {tau[i]:.2f} >= {tau_max} (not predicted a perovskite)" for i in rows]
+
     return candidates[~bad], rejected_candidates(candidates, bad, RULE, value, threshold, detail)
