@@ -334,10 +334,11 @@ def _finish(c: pd.DataFrame, x: Fraction) -> pd.DataFrame:
 
 def _ratio_texts(n_dopant: np.ndarray, n_codopant: np.ndarray, pair: np.ndarray) -> np.ndarray:
     """'n_d:n_c' for pairs, '' otherwise: each distinct ratio written once."""
-    codes, first, inverse = np.unique(np.stack([n_dopant, n_codopant], axis=1), axis=0, return_index=True,
-                                      return_inverse=True)
+    if len(pair) == 0:
+        return np.array([], dtype=object)
+    codes, inverse = np.unique(np.stack([n_dopant, n_codopant], axis=1), axis=0, return_inverse=True)
     texts = np.array([f"{d}:{c}" for d, c in codes], dtype=object)
-    return np.where(pair, texts[inverse.ravel()] if len(codes) else "", "")
+    return np.where(pair, texts[inverse.ravel()], "")
 
 
 def positions(values: pd.Series, labels) -> np.ndarray:

@@ -113,7 +113,7 @@ def _implied_count(placed_types: pd.DataFrame, members: pd.DataFrame, host_ids, 
     ``members``: the host sites of each type.  A host's singles are its placements; its pairs are
     its acceptors times its donors, over all of its sites.
     """
-    n_types = len(members) and int(members["site_type"].max()) + 1
+    n_types = int(members["site_type"].max()) + 1 if len(members) else 0
     row_type = placed_types["host"].to_numpy(np.int64)
     delta = placed_types["delta"].to_numpy(np.int64)
     member_type = members["site_type"].to_numpy(np.int64)
