@@ -58,7 +58,10 @@ def _texts(detail, mask, n):
     if isinstance(detail, str):
         return np.full(n, detail, dtype=object)
     if callable(detail):
-        return np.asarray(list(detail(np.flatnonzero(np.asarray(mask)))), dtype=object).reshape(n)
+        texts = detail(np.flatnonzero(np.asarray(mask)))
+        # a pandas result converts in one step; list() would walk its arrow strings one by one
+        texts = texts.to_numpy(dtype=object) if isinstance(texts, (pd.Series, pd.Index)) else list(texts)
+        return np.asarray(texts, dtype=object).reshape(n)
     return np.asarray(detail, dtype=object)[np.asarray(mask)]
 
 

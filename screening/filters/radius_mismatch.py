@@ -29,7 +29,10 @@ def apply(placements: pd.DataFrame, thresholds: dict) -> tuple[pd.DataFrame, pd.
     def detail(rows):
         # sentences for the rejected rows only: building all three for every placement was most of this rule
         chosen = placements.iloc[rows]
-        cn_code = chosen["coordination"].map(ions.int_to_roman)
+        cn = chosen["coordination"].to_numpy(np.int64)
+        distinct = np.unique(cn)
+        cn_code = pd.Series(np.array([ions.int_to_roman(int(c)) for c in distinct], dtype=object)[
+            np.searchsorted(distinct, cn)], index=chosen.index, dtype="str")
         return np.select(
             [no_radius[rows], estimated_refused[rows]],
             ["no Shannon radius for " + chosen["ion"] + " at coordination " + cn_code
