@@ -6,12 +6,15 @@ outside checks of the rules themselves are in test_enumerate, test_scarcity and 
 """
 from __future__ import annotations
 
+import dataclasses
 import sys
 from pathlib import Path
 
 import pandas as pd
 import pytest
 import yaml
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
 from screening import enumerate as enum
 from screening import hosts as hostlib
@@ -76,3 +79,16 @@ def test_shard_stage_keeps_what_the_per_candidate_reference_keeps(tmp_path):
     assert set(kept["candidate_id"]) | by_tolerance == reference_kept
     assert int(funnel.groupby("host")["enumerated"].first().sum()) == enumerated
     assert len(kept) > 100
+
+
+@settings(max_examples=15, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(host_picks=st.lists(st.sampled_from(range(len(LIBRARY))), min_size=1, max_size=8),
+       pool_picks=st.lists(st.sampled_from(range(len(POOL))), min_size=1, max_size=40, unique=True))
+def test_expansion_equals_host_by_host_for_any_hosts_and_pool(host_picks, pool_picks):
+    # hosts may repeat (a library with two entries of one compound under other ids)
+    hosts = [dataclasses.replace(LIBRARY[i], id=f"{LIBRARY[i].id}-{k}") for k, i in enumerate(host_picks)]
+    pool = POOL.iloc[sorted(pool_picks)].reset_index(drop=True)
+    types, members = enum.site_types(hostlib.sites_frame(hosts))
+    expanded = enum.expand_to_hosts(enum.placements(types, pool), members)
+    direct = enum.placements(hostlib.sites_frame(hosts), pool)
+    pd.testing.assert_frame_equal(expanded, direct)
