@@ -180,9 +180,12 @@ def _run_checked(args, early) -> int:
 def shard_advice(n_hosts: int, shard_size: int, cores: int, snakemake_args: str) -> str | None:
     """A note when a local run has over twice the shards of :func:`screening.shards.local_shard_size`;
     None otherwise, and for cluster runs (a profile or an executor)."""
+    import shlex
+
     from screening import shards
 
-    if any(flag in snakemake_args for flag in ("--profile", "--executor", "-e ")):
+    if any(token == "-e" or token.startswith(("--profile", "--executor", "-e="))
+           for token in shlex.split(snakemake_args)):
         return None
     better = shards.local_shard_size(n_hosts, cores)
     count = shards.shard_count(n_hosts, shard_size)

@@ -96,7 +96,7 @@ def candidates_processed(logs: Path, since: float) -> dict:
         if rank_log.is_file() and rank_log.stat().st_mtime >= since:
             m = _RANKED.search(rank_log.read_text(encoding="utf-8", errors="replace"))
             ranked = int(m[1]) if m else None
-    except OSError:
+    except OSError:  # the rank log being rewritten: the status line shows no ranked count this poll
         pass
     return {"shards": shards, "enumerated": enumerated, "kept": kept, "ranked": ranked}
 

@@ -291,11 +291,6 @@ def load_structures(path: str | Path) -> tuple[list[Host], list[dict]]:
     return hosts, skipped
 
 
-def structures_path(rules) -> Path | None:
-    """The rule set's ``structures`` path (resolved and checked by rulesets.load_ruleset), or None."""
-    return rules.structures_path
-
-
 def combined_hosts(hosts_file, structures: str | Path | None) -> tuple[list[Host], list[dict]]:
     """The host library plus the structures' hosts; a host id in both stops the screen."""
     library = load_hosts(hosts_file)
@@ -312,7 +307,7 @@ def combined_hosts(hosts_file, structures: str | Path | None) -> tuple[list[Host
 
 def load_screen_hosts(rules) -> tuple[list[Host], list[dict]]:
     """Every host of a rule set: its host library and, if it names one, its structures."""
-    return combined_hosts(rules.hosts_path, structures_path(rules))
+    return combined_hosts(rules.hosts_path, rules.structures_path)
 
 
 def skipped_rows(skipped: list[dict]) -> tuple[pd.DataFrame, pd.DataFrame]:
@@ -342,7 +337,7 @@ def structures_hash(path: str | Path) -> str:
 
 def structure_inputs(rules) -> list[str]:
     """The structure files and sidecars of a rule set (Snakemake inputs of prepare_hosts), [] when none."""
-    path = structures_path(rules)
+    path = rules.structures_path
     if path is None:
         return []
     return [str(p) for p in _structure_files(path) if p.is_file()]

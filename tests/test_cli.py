@@ -62,3 +62,7 @@ def test_shard_advice_only_for_local_runs_with_many_shards():
     assert cli.shard_advice(170, 10, 2, "") is not None    # 17
     assert cli.shard_advice(1000, 25, 2, "--profile workflow/profiles/slurm") is None
     assert cli.shard_advice(1000, 25, 2, "--executor slurm") is None
+    assert cli.shard_advice(1000, 25, 2, "-e slurm") is None
+    assert cli.shard_advice(1000, 25, 2, "--profile=workflow/profiles/slurm") is None
+    # a flag that merely contains the letters is a local run (the check is on whole arguments)
+    assert cli.shard_advice(1000, 25, 2, "--keep-going --rerun-triggers mtime") is not None
